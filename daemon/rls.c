@@ -1,0 +1,560 @@
+/* SPDX-License-Identifier: ISC */
+/*
+ * rls: recursive least squares with exponential forgetting, kept in
+ * square-root information form and updated by Givens rotations.
+ * PURE: no I/O, no clocks, no globals; allocates only in rls_new. The
+ * per-record path (rls_apriori, rls_update) uses plain loops, no BLAS call
+ * overhead and no allocation. LAPACK is used for on-demand queries only.
+ *
+ * Equations (symbols as in the code):
+ *   cost  J_n(theta) = sum_i w_i lam^(n-i) (y_i - phi_i'theta)^2
+ *                      + lam^n (theta-theta0)' P0^-1 (theta-theta0)
+ *                      + regularisation rows (below)
+ *   information R_n = lam R_{n-1} + w phi phi',   R_0 = P0^-1
+ *   state T = [U z; 0 rho], U'U = R, U theta = z, rho^2 = J_n(theta_n).
+ * Per record: T <- sqrt(lam) T, then the row sqrt(w) [phi' y] is annihilated
+ * into T with p+1 Givens rotations (square-root information filter:
+ * Bierman 1977, "Factorization Methods for Discrete Sequential Estimation";
+ * QR-RLS, McWhirter 1983; Golub & Van Loan, "Matrix Computations", updating
+ * the QR factorisation). The rotations are orthogonal, so the update is
+ * backward stable, and T stays triangular: positive definiteness and
+ * symmetry of P = R^-1 cannot be lost. U0 = 0 is allowed (diffuse start):
+ * once the records determine theta it equals their least-squares solution,
+ * with no bias from an arbitrary initial covariance.
+ *
+ * Scale folding: instead of multiplying the triangle by sqrt(lam) every
+ * record (p^2/2 multiplies), the code keeps T = s * Tst and only updates
+ * the scalar s; incoming rows are divided by s. When s falls below
+ * RESCALE_MIN the stored triangle is multiplied out and s reset to 1.
+ *
+ * Windup: with lam < 1 and poor excitation, information in unexcited
+ * directions decays as lam^n and P explodes. Remedy: regularised
+ * ("stabilised") forgetting, R_n = lam R_{n-1} + (1-lam) D + w phi phi',
+ * D = delta I, pulling toward theta_ref (Kulhavy & Zarrop 1993; Gunnarsson
+ * 1996). It is applied in the cyclic form: each record adds one pseudo-row
+ * sqrt(p (1-lam) delta) [e_j' theta_ref_j], j = record index mod p, which
+ * costs O(p^2) and keeps an exact batch equivalent (these rows are ordinary
+ * weighted rows). In steady state each coordinate receives between
+ * c_min delta and c_max delta with c = p(1-lam)lam^k/(1-lam^p), k in
+ * 0..p-1, so R >= c_min delta I and trace(P) <= p / (c_min delta) once the
+ * pseudo-rows have accumulated (see rls_windup_bound in the tests).
+ *
+ * Overflow: inputs are bounded by RLS_VALUE_MAX = 1e100 and 1/s by
+ * 1/RESCALE_MIN = 1e30, so every stored entry stays far below DBL_MAX; the
+ * Givens radius uses hypot() only when the operands leave [1e-150, 1e150].
+ */
+#include <float.h>
+#include <math.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include <lapacke.h>
+
+#include "err.h"
+#include "limits.h"
+#include "rls.h"
+
+#define RESCALE_MIN	1e-30
+#define TT(r, i, j)	((r)->T[(size_t)(i) * (size_t)(r)->n + (size_t)(j)])
+
+static int
+finite_bounded(double v)
+{
+	return isfinite(v) && fabs(v) <= RLS_VALUE_MAX;
+}
+
+/* sqrt(a^2 + b^2) without overflow or harmful underflow. */
+static double
+radius(double a, double b)
+{
+	double m = fmax(fabs(a), fabs(b));
+
+	if (m > 1e150 || m < 1e-150)
+		return hypot(a, b);
+	return sqrt(a * a + b * b);
+}
+
+/* Is coefficient j determined? Compares |U_jj| with the column norm
+ * sqrt(R_jj) (both in the stored scale): the sine test of RLS_RANK_TOL. */
+static int
+col_determined(const struct rls *r, int j)
+{
+	double u = TT(r, j, j);
+
+	return u != 0.0 && u * u > RLS_RANK_TOL * RLS_RANK_TOL * r->d[j];
+}
+
+/*
+ * Annihilate row (length n, stored scale) into the triangle, starting at
+ * column j0 (entries of row before j0 must be zero). Updates rho last.
+ */
+static void
+rotate_in(struct rls *r, double *row, int j0)
+{
+	int n = r->n, p = r->p, j, k;
+
+	for (j = j0; j < p; j++) {
+		double a, b, rad, c, sn, *tj;
+
+		b = row[j];
+		if (b == 0.0)
+			continue;
+		tj = &r->T[(size_t)j * (size_t)n];
+		a = tj[j];
+		rad = radius(a, b);
+		c = a / rad;
+		sn = b / rad;
+		tj[j] = rad;
+		for (k = j + 1; k < n; k++) {
+			double t = tj[k];
+
+			tj[k] = c * t + sn * row[k];
+			row[k] = c * row[k] - sn * t;
+		}
+	}
+	TT(r, p, p) = radius(TT(r, p, p), row[p]);
+}
+
+static int
+check_opts(const struct rls_opts *o)
+{
+	int j;
+
+	if (o == NULL || o->p < 1 || o->p > RLS_MAX_P)
+		return E_ARG;
+	if (!isfinite(o->delta) || o->delta < 0)
+		return E_ARG;
+	if (o->theta0 != NULL) {
+		if (o->prior_sd == NULL)
+			return E_ARG;
+		for (j = 0; j < o->p; j++) {
+			if (!finite_bounded(o->theta0[j]))
+				return E_ARG;
+			if (!(o->prior_sd[j] > 0) || isnan(o->prior_sd[j]))
+				return E_ARG;
+			if (isfinite(o->prior_sd[j]) &&
+			    !(1.0 / o->prior_sd[j] <= RLS_VALUE_MAX))
+				return E_ARG;
+		}
+	}
+	if (o->theta_ref != NULL)
+		for (j = 0; j < o->p; j++)
+			if (!finite_bounded(o->theta_ref[j]))
+				return E_ARG;
+	return 0;
+}
+
+static void
+start_state(struct rls *r, const struct rls_opts *o)
+{
+	int j, p = r->p;
+
+	r->s = 1.0;
+	r->lampow = 1.0;
+	r->delta = o->delta;
+	r->nupd = 0;
+	r->cyc = 0;
+	memset(r->T, 0, sizeof(double) * (size_t)r->n * (size_t)r->n);
+	memset(r->d, 0, sizeof(double) * (size_t)p);
+	for (j = 0; j < p; j++) {
+		if (o->theta_ref != NULL)
+			r->theta_ref[j] = o->theta_ref[j];
+		else if (o->theta0 != NULL)
+			r->theta_ref[j] = o->theta0[j];
+		else
+			r->theta_ref[j] = 0.0;
+	}
+	if (o->theta0 == NULL)
+		return;
+	/* Prior: U0 = diag(1/sd), z0 = U0 theta0 (P0 diagonal). */
+	for (j = 0; j < p; j++) {
+		double u;
+
+		if (isinf(o->prior_sd[j]))
+			continue;
+		u = 1.0 / o->prior_sd[j];
+		TT(r, j, j) = u;
+		TT(r, j, p) = u * o->theta0[j];
+		r->d[j] = u * u;
+	}
+}
+
+/*
+ * rls_new: allocate a model with o->p coefficients and set its start state:
+ * diffuse (o->theta0 == NULL) or the prior theta0 with per-coefficient
+ * standard deviations prior_sd (an infinite SD leaves that coefficient
+ * diffuse). Returns NULL on bad options or out of memory. The caller owns
+ * the result and releases it with rls_free.
+ */
+struct rls *
+rls_new(const struct rls_opts *o)
+{
+	struct rls *r;
+	size_t n, bytes;
+
+	if (check_opts(o) != 0)
+		return NULL;
+	n = (size_t)o->p + 1;
+	bytes = sizeof(*r) + sizeof(double) * (n * n + 2 * (size_t)o->p);
+	if ((r = calloc(1, bytes)) == NULL)
+		return NULL;
+	r->p = o->p;
+	r->n = (int)n;
+	r->T = (double *)(r + 1);
+	r->d = r->T + n * n;
+	r->theta_ref = r->d + o->p;
+	start_state(r, o);
+	return r;
+}
+
+/* rls_free: release r; NULL is a no-op. */
+void
+rls_free(struct rls *r)
+{
+	free(r);
+}
+
+/*
+ * rls_reset: return r to the start state described by o, which must have
+ * the same p. Returns E_ARG (state unchanged) on bad options.
+ */
+int
+rls_reset(struct rls *r, const struct rls_opts *o)
+{
+	int rc;
+
+	if (r == NULL || (rc = check_opts(o)) != 0 || o->p != r->p)
+		return E_ARG;
+	start_state(r, o);
+	return 0;
+}
+
+/*
+ * rls_copy: make dst an exact copy of src's state (same p required).
+ * Returns E_ARG when the sizes differ; dst is then unchanged.
+ */
+int
+rls_copy(struct rls *dst, const struct rls *src)
+{
+	size_t n;
+
+	if (dst == NULL || src == NULL || dst->p != src->p)
+		return E_ARG;
+	n = (size_t)src->n;
+	dst->s = src->s;
+	dst->lampow = src->lampow;
+	dst->delta = src->delta;
+	dst->nupd = src->nupd;
+	dst->cyc = src->cyc;
+	memcpy(dst->T, src->T, sizeof(double) * n * n);
+	memcpy(dst->d, src->d, sizeof(double) * (size_t)src->p);
+	memcpy(dst->theta_ref, src->theta_ref, sizeof(double) * (size_t)src->p);
+	return 0;
+}
+
+/*
+ * rls_rank: the number of determined coefficients (RLS_RANK_TOL test).
+ */
+int
+rls_rank(const struct rls *r)
+{
+	int j, k = 0;
+
+	for (j = 0; j < r->p; j++)
+		k += col_determined(r, j);
+	return k;
+}
+
+/* Forward substitution v = Ust^-T x (stored scale), axpy form so each row
+ * of T is read contiguously. Requires every diagonal nonzero. */
+static void
+forward(const struct rls *r, const double *x, double *v)
+{
+	int i, j, p = r->p;
+
+	memcpy(v, x, sizeof(double) * (size_t)p);
+	for (i = 0; i < p; i++) {
+		const double *ti = &r->T[(size_t)i * (size_t)r->n];
+		double vi = v[i] / ti[i];
+
+		v[i] = vi;
+		for (j = i + 1; j < p; j++)
+			v[j] -= ti[j] * vi;
+	}
+}
+
+/*
+ * rls_apriori: the one-step-ahead quantities for regressor phi without
+ * changing state: yhat = phi' theta_{n-1} and r = phi' P_{n-1} phi, where
+ * P_{n-1} = R_{n-1}^-1 (before the next record's forgetting). When some
+ * coefficient is not yet determined, a->determined = 0 and yhat, r are NAN.
+ * Returns E_NUMERIC for a non-finite or out-of-range phi.
+ * Cost: p^2/2 multiply-adds.
+ */
+int
+rls_apriori(const struct rls *r, const double *phi, struct rls_apriori *a)
+{
+	double v[RLS_MAX_P + 1];
+	double yhat = 0, ss = 0;
+	int j, p = r->p;
+
+	for (j = 0; j < p; j++)
+		if (!finite_bounded(phi[j]))
+			return E_NUMERIC;
+	a->rank = rls_rank(r);
+	a->determined = a->rank == p;
+	if (!a->determined) {
+		a->yhat = NAN;
+		a->r = NAN;
+		return 0;
+	}
+	forward(r, phi, v);
+	for (j = 0; j < p; j++) {
+		yhat += v[j] * TT(r, j, p);
+		ss += v[j] * v[j];
+	}
+	a->yhat = yhat;
+	a->r = ss / (r->s * r->s);
+	return 0;
+}
+
+/*
+ * rls_update: apply forgetting factor lambda in (0, 1] to the past, then
+ * add the record (phi, y) with weight w >= 0 (w = 0 adds no information;
+ * the forgetting still applies). When delta > 0 and lambda < 1 one cyclic
+ * regularisation row is added as described at the top of this file.
+ * Returns E_NUMERIC for non-finite or out-of-range values and E_ARG for a
+ * bad weight or lambda; on error the state is bit-for-bit unchanged.
+ * Cost: about 2p^2 multiply-adds, p+1 square roots; no allocation.
+ */
+int
+rls_update(struct rls *r, const double *phi, double y, double w,
+    double lambda)
+{
+	double row[RLS_MAX_P + 1];
+	double s, inv, g;
+	int j, p = r->p, n = r->n;
+
+	for (j = 0; j < p; j++)
+		if (!finite_bounded(phi[j]))
+			return E_NUMERIC;
+	if (!finite_bounded(y))
+		return E_NUMERIC;
+	if (!(w >= 0) || !(w <= RLS_VALUE_MAX))
+		return E_ARG;
+	if (!(lambda > 0) || !(lambda <= 1))
+		return E_ARG;
+
+	/* Forget: true T <- sqrt(lambda) T, folded into s. */
+	s = r->s * sqrt(lambda);
+	if (s < RESCALE_MIN) {
+		size_t i, nn = (size_t)n * (size_t)n;
+
+		for (i = 0; i < nn; i++)
+			r->T[i] *= s;
+		for (j = 0; j < p; j++)
+			r->d[j] *= s * s;
+		s = 1.0;
+	}
+	r->s = s;
+	r->lampow *= lambda;
+	inv = 1.0 / s;
+
+	if (w > 0) {
+		double sw = sqrt(w) * inv;
+
+		for (j = 0; j < p; j++) {
+			row[j] = sw * phi[j];
+			r->d[j] += row[j] * row[j];
+		}
+		row[p] = sw * y;
+		rotate_in(r, row, 0);
+	}
+	if (r->delta > 0 && lambda < 1) {
+		int c = r->cyc;
+
+		g = sqrt((double)p * (1 - lambda) * r->delta) * inv;
+		memset(row, 0, sizeof(double) * (size_t)n);
+		row[c] = g;
+		row[p] = g * r->theta_ref[c];
+		r->d[c] += g * g;
+		rotate_in(r, row, c);
+		r->cyc = (c + 1) % p;
+	}
+	r->nupd++;
+	return 0;
+}
+
+/*
+ * rls_theta: the current coefficients theta = U^-1 z by back substitution
+ * (p^2/2 multiply-adds). A coefficient that is not determined yet is
+ * reported as 0 and excluded from the others (a basic solution); check
+ * rls_rank. Always returns 0.
+ */
+int
+rls_theta(const struct rls *r, double *theta)
+{
+	int i, k, p = r->p;
+
+	for (i = p - 1; i >= 0; i--) {
+		const double *ti = &r->T[(size_t)i * (size_t)r->n];
+		double acc;
+
+		if (!col_determined(r, i)) {
+			theta[i] = 0.0;
+			continue;
+		}
+		acc = ti[p];
+		for (k = i + 1; k < p; k++)
+			acc -= ti[k] * theta[k];
+		theta[i] = acc / ti[i];
+	}
+	return 0;
+}
+
+/* rls_rss: J = rho^2, the weighted residual sum of squares of the current
+ * fit, including the (decayed) prior and regularisation penalty. */
+double
+rls_rss(const struct rls *r)
+{
+	double rho = r->s * TT(r, r->p, r->p);
+
+	return rho * rho;
+}
+
+/*
+ * rls_cov_unscaled: P = R^-1 = U^-1 U^-T into P (p*p row-major, caller's
+ * storage), computed with LAPACK dtrtri + dlauum. Returns E_STATE when a
+ * coefficient is not determined (P would be unbounded) and E_NUMERIC when
+ * LAPACK reports a singular factor.
+ */
+int
+rls_cov_unscaled(const struct rls *r, double *P)
+{
+	int i, j, p = r->p;
+	double s2 = r->s * r->s;
+
+	if (rls_rank(r) < p)
+		return E_STATE;
+	for (i = 0; i < p; i++)
+		for (j = 0; j < p; j++)
+			P[i * p + j] = j >= i ? TT(r, i, j) : 0.0;
+	if (LAPACKE_dtrtri(LAPACK_ROW_MAJOR, 'U', 'N', p, P, p) != 0)
+		return E_NUMERIC;
+	if (LAPACKE_dlauum(LAPACK_ROW_MAJOR, 'U', p, P, p) != 0)
+		return E_NUMERIC;
+	for (i = 0; i < p; i++)
+		for (j = i; j < p; j++) {
+			P[i * p + j] /= s2;
+			P[j * p + i] = P[i * p + j];
+		}
+	return 0;
+}
+
+/*
+ * rls_xpx: *q = x' P x = ||U^-T x||^2 for the current state (no forgetting
+ * of the next record applied). E_STATE when not determined, E_NUMERIC for
+ * a non-finite x.
+ */
+int
+rls_xpx(const struct rls *r, const double *x, double *q)
+{
+	struct rls_apriori a;
+	int rc;
+
+	if ((rc = rls_apriori(r, x, &a)) != 0)
+		return rc;
+	if (!a.determined)
+		return E_STATE;
+	*q = a.r;
+	return 0;
+}
+
+/*
+ * rls_cond: *kappa = an estimate of the 1-norm condition number of P,
+ * computed as (1/rcond(U))^2 with LAPACK dtrcon (Hager 1984; Higham 1988)
+ * in O(p^2). E_STATE when not determined.
+ */
+int
+rls_cond(const struct rls *r, double *kappa)
+{
+	double rcond = 0;
+
+	if (rls_rank(r) < r->p)
+		return E_STATE;
+	if (LAPACKE_dtrcon(LAPACK_ROW_MAJOR, '1', 'U', 'N', r->p, r->T, r->n,
+	    &rcond) != 0)
+		return E_NUMERIC;
+	*kappa = rcond > 0 ? 1.0 / (rcond * rcond) : INFINITY;
+	return 0;
+}
+
+/*
+ * rls_mahal: *d2 = (theta - ref)' R (theta - ref) = ||z - U ref||^2, the
+ * distance of ref from the current estimate in the metric of the
+ * information matrix, in O(p^2/2) without forming theta or P.
+ */
+int
+rls_mahal(const struct rls *r, const double *ref, double *d2)
+{
+	double acc = 0;
+	int i, k, p = r->p;
+
+	for (i = 0; i < p; i++) {
+		const double *ti = &r->T[(size_t)i * (size_t)r->n];
+		double e = ti[p];
+
+		for (k = i; k < p; k++)
+			e -= ti[k] * ref[k];
+		acc += e * e;
+	}
+	*d2 = acc * r->s * r->s;
+	return 0;
+}
+
+/*
+ * rls_diag_p: diag(P) into dp (p values): P_jj is the squared norm of row j
+ * of U^-1, accumulated column by column by back substitution; O(p^3/6), no
+ * allocation. E_STATE when not determined.
+ */
+int
+rls_diag_p(const struct rls *r, double *dp)
+{
+	double x[RLS_MAX_P];
+	int i, k, c, p = r->p;
+	double s2 = r->s * r->s;
+
+	if (rls_rank(r) < p)
+		return E_STATE;
+	memset(dp, 0, sizeof(double) * (size_t)p);
+	for (c = 0; c < p; c++) {
+		/* Solve Ust x = e_c; x_i = 0 for i > c. */
+		for (i = c; i >= 0; i--) {
+			const double *ti = &r->T[(size_t)i * (size_t)r->n];
+			double acc = i == c ? 1.0 : 0.0;
+
+			for (k = i + 1; k <= c; k++)
+				acc -= ti[k] * x[k];
+			x[i] = acc / ti[i];
+			dp[i] += x[i] * x[i];
+		}
+	}
+	for (i = 0; i < p; i++)
+		dp[i] /= s2;
+	return 0;
+}
+
+/* rls_trace_p: *tr = trace(P); E_STATE when not determined. */
+int
+rls_trace_p(const struct rls *r, double *tr)
+{
+	double dp[RLS_MAX_P];
+	int j, rc;
+
+	if ((rc = rls_diag_p(r, dp)) != 0)
+		return rc;
+	*tr = 0;
+	for (j = 0; j < r->p; j++)
+		*tr += dp[j];
+	return 0;
+}
