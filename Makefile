@@ -42,7 +42,7 @@ CORE_SRC = daemon/err.c daemon/rls.c daemon/stats.c daemon/alarm.c
 DAEMON_SRC = daemon/main.c
 CLIENT_SRC = client/main.c
 # Unit tests: one check_<module>.c per pure module plus the runner.
-TEST_SRC = tests/check_main.c tests/check_err.c tests/testutil.c tests/check_rls.c
+TEST_SRC = tests/check_main.c tests/check_err.c tests/testutil.c tests/check_rls.c tests/check_stats.c tests/check_alarm.c
 
 CORE_OBJ   = $(CORE_SRC:%.c=$(BUILD)/%.o)
 DAEMON_OBJ = $(DAEMON_SRC:%.c=$(BUILD)/%.o)

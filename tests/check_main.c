@@ -18,6 +18,8 @@ main(void)
 
 	sr = srunner_create(err_suite());
 	srunner_add_suite(sr, rls_suite());
+	srunner_add_suite(sr, stats_suite());
+	srunner_add_suite(sr, alarm_suite());
 	srunner_run_all(sr, CK_NORMAL);
 	nfail = srunner_ntests_failed(sr);
 	nrun = srunner_ntests_run(sr);

@@ -6,5 +6,7 @@
 
 Suite *err_suite(void);
 Suite *rls_suite(void);
+Suite *stats_suite(void);
+Suite *alarm_suite(void);
 
 #endif
