@@ -314,6 +314,7 @@ model_step(struct model *m, const double *phi, double y, double w,
 		if (sref > 0)
 			out->z = out->e / (sref * sqrt(f));
 	}
+	out->f = f;
 	out->gate = alarm_gate(&m->al, &m->o.alarm, out->z, t, &out->events);
 	out->used = !m->frozen && out->gate != ALARM_GATE_OUTLIER && w > 0;
 
@@ -398,6 +399,24 @@ model_report(const struct model *m, struct model_report *rep)
 			rep->ci_hi[j] = theta[j] + tq * se;
 	}
 	return 0;
+}
+
+/*
+ * model_report_fast: like model_report but only rep->theta (if non-NULL),
+ * rank and the statistics, in O(p^2): for per-record traces.
+ */
+void
+model_report_fast(const struct model *m, struct model_report *rep)
+{
+	rep->p = m->o.p;
+	rep->rank = rls_rank(m->rls);
+	rep->determined = rep->rank == m->o.p;
+	if (rep->theta != NULL)
+		rls_theta(m->rls, rep->theta);
+	stats_report(&m->st, rls_rss(m->rls), m->o.p, m->o.intercept,
+	    m->rls->lampow, cur_lambda(m), &rep->s);
+	rep->lambda = cur_lambda(m);
+	rep->sigma_ref = sigma_ref(m);
 }
 
 /*

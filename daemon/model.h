@@ -40,6 +40,7 @@ struct model_step_out {
 	double		 yhat;		/* one-step-ahead prediction (NAN) */
 	double		 e;		/* one-step-ahead error (NAN) */
 	double		 z;		/* standardised error (NAN) */
+	double		 f;		/* var(e)/sigma^2 = 1/w + r/lambda */
 	int		 used;		/* 1 if it updated the fit */
 	enum alarm_gate	 gate;		/* gate outcome */
 	unsigned	 events;	/* ALARM_EV_* bits */
@@ -96,6 +97,9 @@ int		 model_step(struct model *m, const double *phi, double y,
 		    double w, double t, struct model_step_out *out);
 /* model_report: fill rep from the current state. */
 int		 model_report(const struct model *m, struct model_report *rep);
+/* model_report_fast: theta and statistics only (no SEs, no LAPACK). */
+void		 model_report_fast(const struct model *m,
+		    struct model_report *rep);
 /* model_predict: yhat with a prediction interval for regressors phi. */
 int		 model_predict(const struct model *m, const double *phi,
 		    double *yhat, double *se, double *lo, double *hi);
