@@ -5,5 +5,6 @@
 #include <check.h>
 
 Suite *err_suite(void);
+Suite *terms_suite(void);
 
 #endif
