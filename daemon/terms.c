@@ -26,7 +26,7 @@ struct terms {
 	int		 nfields;
 	int		 nvars;		/* 2 nfields */
 	int		 target;	/* field index, or -1 */
-	int		 intercept;	/* 1: coefficient 0 is the constant */
+	int		 intercept;	/* 1: coefficient 0 is 1 */
 	int		 p;		/* coefficients */
 	int		 uses_prev;
 	int		 scaling_set;
@@ -34,10 +34,10 @@ struct terms {
 	int		*fac_off;	/* p + 1: term j has factors */
 	int		*fac_var;	/*   fac_off[j] .. fac_off[j+1]-1 */
 	int		*fac_exp;
-	char		**text;		/* p display texts, in textbuf */
+	char		**text;		/* p display texts */
 	char		*textbuf;
-	unsigned char	*used;		/* nfields: field in some term */
-	unsigned char	*centrable;	/* nfields: closure rule holds */
+	unsigned char	*used;		/* nfields: in some term */
+	unsigned char	*centrable;	/* nfields: closure holds */
 	double		*centre;	/* nfields: c_f */
 	double		*scale;		/* nfields: s_f */
 	/* M (phi_s = M phi_o) as a list of nonzero entries, row-major. */
@@ -46,8 +46,8 @@ struct terms {
 	int		*m_row;
 	int		*m_col;
 	double		*m_val;
-	int		*col_off;	/* p + 1: entries of column i are */
-	int		*col_idx;	/*   col_idx[col_off[i] .. col_off[i+1]-1] */
+	int		*col_off;	/* p + 1; column i's entries: */
+	int		*col_idx;	/* col_idx[col_off[i]..] */
 	/* Scratch, owned here so that the hot paths do not allocate. */
 	unsigned char	*rowbuf;	/* nvars */
 	int		*kbuf;		/* max(nvars, p) */
@@ -189,7 +189,7 @@ enum tok {
 
 struct parser {
 	const char		*s;
-	size_t			 pos;		/* next unread byte */
+	size_t			 pos;		/* next byte */
 	enum tok		 tok;		/* current token */
 	size_t			 start;		/* its offset */
 	size_t			 len;		/* its length */
@@ -748,7 +748,7 @@ compute_map(struct terms *t)
 	for (i = 0; i < t->p; i++)
 		t->col_off[i + 1] += t->col_off[i];
 	for (i = 0; i < t->p; i++)
-		t->kbuf[i] = t->col_off[i];	/* next free slot per column */
+		t->kbuf[i] = t->col_off[i];	/* next free slot */
 	for (i = 0; i < t->nnz; i++)
 		t->col_idx[t->kbuf[t->m_col[i]]++] = i;
 	return 0;
@@ -1078,23 +1078,25 @@ pow2_ceil(double m)
 
 /*
  * terms_scaling_auto: the default rule, from the first n >= 1 records a
- * model sees (X row-major, n rows of terms_nfields(t) raw values). For a
- * used field with range [lo, hi] over the records:
+ * model sees (X row-major, n rows of terms_nfields(t) raw values). Rows
+ * with a non-finite value in a used field are ignored (the model will
+ * reject them). For a used field with range [lo, hi] over the other rows:
  *   centrable:      c = (lo + hi) / 2,  s = 2^k >= (hi - lo) / 2;
  *   not centrable:  c = 0,              s = 2^k >= max(|lo|, |hi|);
  * when hi = lo (always for n = 1) a centrable field gets c = lo and
  * s = 2^k >= |lo|; s = 1 when that bound is 0. Unused fields get c = 0,
- * s = 1. Then |u| <= 1 on these records, so none of them can overflow a
+ * s = 1. Then |u| <= 1 on these rows, so none of them can overflow a
  * term, and powers of two keep the division exact. Returns 0; E_ARG if
- * n < 1; E_STATE if already set; E_NUMERIC if a used field is not finite.
- * On failure t is unchanged.
+ * n < 1; E_STATE if already set; E_NUMERIC if no row is usable or M would
+ * overflow. On failure t is unchanged.
  */
 int
 terms_scaling_auto(struct terms *t, const double *X, int n)
 {
 	double *c = t->work, *s = t->work + t->nfields, lo, hi, v, m;
+	const double *row;
 	size_t nf = (size_t)t->nfields;
-	int f, i;
+	int f, i, nuse, ok;
 
 	if (n < 1)
 		return E_ARG;
@@ -1103,24 +1105,41 @@ terms_scaling_auto(struct terms *t, const double *X, int n)
 	for (f = 0; f < t->nfields; f++) {
 		c[f] = 0.0;
 		s[f] = 1.0;
+	}
+	for (i = 0, nuse = 0; i < n; i++) {
+		row = X + (size_t)i * nf;
+		for (f = 0, ok = 1; f < t->nfields && ok; f++)
+			ok = !t->used[f] || isfinite(row[f]);
+		if (!ok)
+			continue;
+		for (f = 0; f < t->nfields; f++) {
+			if (!t->used[f])
+				continue;
+			/* Track the range in c (lo) and s (hi) for now. */
+			v = row[f];
+			if (nuse == 0 || v < c[f])
+				c[f] = v;
+			if (nuse == 0 || v > s[f])
+				s[f] = v;
+		}
+		nuse++;
+	}
+	if (nuse == 0)
+		return E_NUMERIC;
+	for (f = 0; f < t->nfields; f++) {
 		if (!t->used[f])
 			continue;
-		lo = hi = X[f];
-		for (i = 0; i < n; i++) {
-			v = X[(size_t)i * nf + (size_t)f];
-			if (!isfinite(v))
-				return E_NUMERIC;
-			lo = v < lo ? v : lo;
-			hi = v > hi ? v : hi;
-		}
+		lo = c[f];
+		hi = s[f];
 		/* Halve before adding or subtracting: no overflow. */
 		if (t->centrable[f]) {
 			c[f] = hi > lo ? lo / 2 + hi / 2 : lo;
 			m = hi > lo ? hi / 2 - lo / 2 : fabs(lo);
-		} else
+		} else {
+			c[f] = 0.0;
 			m = fabs(lo) > fabs(hi) ? fabs(lo) : fabs(hi);
-		if (m > 0.0)
-			s[f] = pow2_ceil(m);
+		}
+		s[f] = m > 0.0 ? pow2_ceil(m) : 1.0;
 	}
 	return terms_set_scaling(t, c, s);
 }

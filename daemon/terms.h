@@ -13,7 +13,7 @@
 
 #include <stddef.h>
 
-#define TERMS_POWER_MAX	9	/* largest power of one field in a term */
+#define TERMS_POWER_MAX	9	/* largest power of a field in a term */
 
 /*
  * A compiled term set. Owner: the caller of terms_parse (in the daemon, the

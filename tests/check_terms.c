@@ -201,7 +201,7 @@ START_TEST(test_terms_errors)
 	int rc;
 
 	for (i = 0; i < sizeof(c) / sizeof(c[0]); i++) {
-		t = (struct terms *)(void *)eb;	/* must be reset to NULL */
+		t = (struct terms *)(void *)eb;	/* must become NULL */
 		rc = terms_parse(c[i].text, F3, 3, 2, 1, &t, eb, sizeof(eb));
 		ck_assert_msg(rc == E_ARG, "'%s': rc %d", c[i].text, rc);
 		ck_assert_ptr_null(t);
@@ -328,7 +328,7 @@ START_TEST(test_terms_closure)
 		{ "a*b, b", 1, 1, 0, 0 },	/* lowering b needs a */
 		{ "a, a*b", 1, 0, 1, 0 },
 		{ "a, prev(a)", 1, 1, 0, 0 },
-		{ "a, a^2, prev(a)^2", 1, 0, 0, 0 },	/* prev(a) missing */
+		{ "a, a^2, prev(a)^2", 1, 0, 0, 0 },	/* no prev(a) */
 		{ "prev(y), prev(y)^2", 1, 0, 0, 1 },
 		{ "a, prev(y), a*prev(y)", 1, 1, 0, 1 },
 		{ "a, b, a^2*b", 1, 0, 0, 0 },	/* a*b and a^2 missing */
@@ -729,7 +729,7 @@ START_TEST(test_terms_scaling_auto_rule)
 	ck_assert_int_eq(terms_scaling_auto(t, &X[0][0], 3), 0);
 	terms_get_scaling(t, c, s);
 	ck_assert(c[0] == 300000.0 && s[0] == 262144.0);	/* >= 150000 */
-	ck_assert(c[1] == 0.0 && s[1] == 8.0);		/* >= max |w| = 5 */
+	ck_assert(c[1] == 0.0 && s[1] == 8.0);	/* >= max |w| = 5 */
 	ck_assert(c[3] == 0.0 && s[3] == 1.0);
 	for (i = 0; i < 3; i++) {
 		ck_assert_int_eq(terms_eval(t, X[i], NULL, phi), 0);
@@ -738,11 +738,20 @@ START_TEST(test_terms_scaling_auto_rule)
 	}
 	terms_free(t);
 
-	/* A non-finite used field: E_NUMERIC, nothing set. */
+	/* A row with a non-finite used field is ignored... */
 	t = parse_ok("x, u", f4, 4, -1, 1);
-	ck_assert_int_eq(terms_scaling_auto(t, &X[0][0], 3), E_NUMERIC);
+	ck_assert_int_eq(terms_scaling_auto(t, &X[0][0], 3), 0);
+	terms_get_scaling(t, c, s);
+	ck_assert(c[0] == 375000.0 && s[0] == 131072.0);	/* >= 75000 */
+	ck_assert(c[2] == 1.5 && s[2] == 0.5);
+	terms_free(t);
+	/* ... and with no usable row: E_NUMERIC, nothing set. */
+	t = parse_ok("x, u", f4, 4, -1, 1);
+	ck_assert_int_eq(terms_scaling_auto(t, &X[0][0], 1), E_NUMERIC);
 	ck_assert_int_eq(terms_scaling_is_set(t), 0);
-	ck_assert_int_eq(terms_scaling_auto(t, &X[1][0], 2), 0);
+	X[1][0] = INFINITY;
+	ck_assert_int_eq(terms_scaling_auto(t, &X[0][0], 2), E_NUMERIC);
+	ck_assert_int_eq(terms_scaling_is_set(t), 0);
 	terms_free(t);
 }
 END_TEST
