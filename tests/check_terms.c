@@ -432,7 +432,7 @@ END_TEST
  * products, prev(), one field only scaled). Both sides are evaluated
  * independently (terms_eval forms ((x-c)/s)^e products, terms_eval_original
  * raw products); the tolerance is relative to sum_i |M_ji phi_o,i|, the
- * size of the terms that cancel.
+ * size of the terms that cancel (measured worst 5e-16).
  */
 static const char *const F5[] = { "a", "b", "c", "d", "y" };
 static const char *const T5 = "a, a^2, a^3, b, a*b, a^2*b, b^2, prev(y), "
@@ -441,7 +441,7 @@ static const char *const T5 = "a, a^2, a^3, b, a*b, a^2*b, b^2, prev(y), "
 START_TEST(test_terms_map_random)
 {
 	double x[5], xp[5], cen[5], sc[5], ps[14], po[14], M[14 * 14];
-	double sum, mag, worst = 0.0;
+	double sum, mag;
 	struct terms *t;
 	int it, j, i, p;
 
@@ -476,8 +476,6 @@ START_TEST(test_terms_map_random)
 			}
 			ck_assert_msg(fabs(ps[j] - sum) <= 1e-12 * mag,
 			    "term %d: %.17g vs %.17g", j, ps[j], sum);
-			if (mag > 0 && fabs(ps[j] - sum) / mag > worst)
-				worst = fabs(ps[j] - sum) / mag;
 		}
 	}
 	terms_free(t);
@@ -601,7 +599,7 @@ ls_dgels(int n, int p, const double *X, const double *y, double *theta,
  * scaled basis and in the original basis with dgels; M' Cov_s M must equal
  * the original-basis sigma^2 (X'X)^-1, and M' theta_s its theta. The data
  * are moderately conditioned in both bases so dgels is accurate in both
- * (measured agreement about 1e-13; tolerance 1e-9).
+ * (measured: 3.5e-15 on theta, 1.9e-15 on cov; tolerance 1e-11).
  */
 START_TEST(test_terms_cov_lapack)
 {
@@ -640,12 +638,12 @@ START_TEST(test_terms_cov_lapack)
 	terms_to_original(t, ts, cs, to, co);
 	ck_assert_double_eq_tol(rss_s, rss_o, 1e-12 * rss_o);
 	for (j = 0; j < P; j++)
-		ck_assert_msg(fabs(to[j] - td[j]) <= 1e-9 * fabs(td[j]),
+		ck_assert_msg(fabs(to[j] - td[j]) <= 1e-11 * fabs(td[j]),
 		    "theta %d: %.17g vs %.17g", j, to[j], td[j]);
 	for (cmax = 0.0, i = 0; i < P * P; i++)
 		cmax = fabs(cd[i]) > cmax ? fabs(cd[i]) : cmax;
 	for (i = 0; i < P * P; i++)
-		ck_assert_msg(fabs(co[i] - cd[i]) <= 1e-9 * cmax,
+		ck_assert_msg(fabs(co[i] - cd[i]) <= 1e-11 * cmax,
 		    "cov %d: %.17g vs %.17g", i, co[i], cd[i]);
 	terms_free(t);
 }
