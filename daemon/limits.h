@@ -9,5 +9,6 @@
 #define RLS_MAX_P		256	/* coefficients per model (>= 64 required) */
 #define MODEL_NAME_MAX		64	/* bytes in a model name, excluding NUL */
 #define FIELD_NAME_MAX		32	/* bytes in a field (feature) name */
+#define TERMS_MAX		(RLS_MAX_P - 1)	/* terms, intercept excluded */
 
 #endif

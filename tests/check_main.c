@@ -20,6 +20,7 @@ main(void)
 	srunner_add_suite(sr, rls_suite());
 	srunner_add_suite(sr, stats_suite());
 	srunner_add_suite(sr, alarm_suite());
+	srunner_add_suite(sr, terms_suite());
 	srunner_run_all(sr, CK_NORMAL);
 	nfail = srunner_ntests_failed(sr);
 	nrun = srunner_ntests_run(sr);

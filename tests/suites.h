@@ -8,5 +8,6 @@ Suite *err_suite(void);
 Suite *rls_suite(void);
 Suite *stats_suite(void);
 Suite *alarm_suite(void);
+Suite *terms_suite(void);
 
 #endif
