@@ -20,6 +20,7 @@
 #include "model.h"
 #include "proto.h"
 #include "render.h"
+#include "terms.h"
 
 struct fit_args {
 	const char	*file;
@@ -28,7 +29,9 @@ struct fit_args {
 	const char	*weightcol;
 	const char	*name;
 	const char	*trace;
+	const char	*terms;
 	double		 lambda;
+	double		 gate;
 	double		 tau;
 	double		 delta;
 	int		 intercept;
@@ -43,12 +46,14 @@ struct fit_cols {
 	int	 k;			/* features */
 	int	 feat[RLS_MAX_P];	/* column index of each feature */
 	const char *coef_names[RLS_MAX_P];
+	const char *fields[RLS_MAX_P + 1];	/* features, then target */
 };
 
 static const char fit_usage[] =
 "usage: coefctl fit [--lambda L | --tau DURATION --time COLUMN]\n"
 "                   [--target COLUMN] [--weight COLUMN] [--no-intercept]\n"
-"                   [--delta D] [--name NAME] [--json] [--trace OUT.csv]\n"
+"                   [--terms LIST] [--delta D] [--gate Z] [--name NAME]\n"
+"                   [--json] [--trace OUT.csv]\n"
 "                   FILE.csv | -\n"
 "\n"
 "Fit a linear model to a CSV file with a header row, one record at a time\n"
@@ -62,6 +67,11 @@ static const char fit_usage[] =
 "  --time COLUMN    record times: Unix seconds or RFC 3339\n"
 "  --weight COLUMN  per-record weights (>= 0)\n"
 "  --no-intercept   fit through the origin\n"
+"  --terms LIST     derived terms of the feature columns, e.g.\n"
+"                   \"raw, raw^2, raw*temp, prev(raw)\" (see TERMS.md)\n"
+"  --gate Z         gate records whose standardised one-step-ahead error\n"
+"                   exceeds Z (default off: plain least squares; the\n"
+"                   daemon's default is 5, use it to backtest)\n"
 "  --delta D        regularised-forgetting strength (default 1e-6)\n"
 "  --name NAME      model name shown in the output (default: file name)\n"
 "  --json           print one JSON object (the daemon's model keys)\n"
@@ -82,6 +92,8 @@ parse_args(int argc, char **argv, struct fit_args *a)
 		{ "name", required_argument, NULL, 'n' },
 		{ "json", no_argument, NULL, 'j' },
 		{ "trace", required_argument, NULL, 'r' },
+		{ "terms", required_argument, NULL, 'x' },
+		{ "gate", required_argument, NULL, 'g' },
 		{ "help", no_argument, NULL, 'h' },
 		{ NULL, 0, NULL, 0 }
 	};
@@ -90,6 +102,7 @@ parse_args(int argc, char **argv, struct fit_args *a)
 	memset(a, 0, sizeof(*a));
 	a->lambda = 1;
 	a->intercept = 1;
+	a->gate = INFINITY;
 	optind = 1;
 	while ((ch = getopt_long(argc, argv, "h", lo, NULL)) != -1) {
 		switch (ch) {
@@ -131,6 +144,14 @@ parse_args(int argc, char **argv, struct fit_args *a)
 			break;
 		case 'r':
 			a->trace = optarg;
+			break;
+		case 'x':
+			a->terms = optarg;
+			break;
+		case 'g':
+			if (ctl_number(optarg, &a->gate) != 0 || !(a->gate > 0))
+				return ctl_usage_error(fit_usage,
+				    "--gate must be a number > 0");
 			break;
 		case 'h':
 			fputs(fit_usage, stdout);
@@ -246,7 +267,41 @@ pick_features(struct csv *cv, const struct fit_args *a, struct fit_cols *c)
 	return 0;
 }
 
-/* One data row to (phi, y, w, t). Returns 0, or -1 with a message. */
+/*
+ * With --terms: compile the list over the feature columns plus the target
+ * (usable inside prev()), attach it to a new model. Returns the model or
+ * NULL after printing the error.
+ */
+static struct model *
+new_terms_model(const struct fit_args *a, struct fit_cols *c,
+    struct model_opts *mo)
+{
+	struct terms *t;
+	struct model *m;
+	char err[200];
+	int i, p;
+
+	for (i = 0; i < c->k; i++)
+		c->fields[i] = c->names[c->feat[i]];
+	c->fields[c->k] = c->names[c->target];
+	if (terms_parse(a->terms, c->fields, c->k + 1, c->k, a->intercept, &t,
+	    err, sizeof(err)) != 0) {
+		ctl_err("--terms: %s", err);
+		return NULL;
+	}
+	p = terms_p(t);
+	for (i = 0; i < p; i++)
+		c->coef_names[i] = terms_text(t, i);
+	mo->p = p;
+	if ((m = model_new(mo)) == NULL || model_set_terms(m, t, 1) != 0) {
+		ctl_err("cannot create the model");
+		model_free(m);
+		return NULL;
+	}
+	return m;
+}
+
+/* One data row to (phi, y, w, t). Returns 0, or 1 with a message. */
 static int
 row_values(const struct csv *cv, const struct fit_cols *c, int intercept,
     double *phi, double *y, double *w, double *t, char *err, size_t len)
@@ -256,7 +311,7 @@ row_values(const struct csv *cv, const struct fit_cols *c, int intercept,
 
 	if (cv->nf != c->ncol) {
 		snprintf(err, len, "%d fields, header has %d", cv->nf, c->ncol);
-		return -1;
+		return 1;
 	}
 	if (intercept)
 		phi[0] = 1;
@@ -278,7 +333,7 @@ row_values(const struct csv *cv, const struct fit_cols *c, int intercept,
 			    c->names[col], what[0] == '\0' ? "empty value" :
 			    rc == E_NUMERIC ? "not a finite number" :
 			    i == -2 ? "not a time" : "not a number", what);
-			return -1;
+			return 1;
 		}
 		if (i == -3)
 			*y = v;
@@ -356,9 +411,10 @@ print_table(const struct fit_args *a, const struct fit_cols *c,
 		if ((int)strlen(c->coef_names[j]) > w)
 			w = (int)strlen(c->coef_names[j]);
 	printf("model     %s\n", a->name);
-	printf("records   %llu used, %llu gated, %lu rejected\n",
+	printf("records   %llu used, %llu gated, %llu primed, %lu rejected\n",
 	    (unsigned long long)m->n_used,
-	    (unsigned long long)m->al.n_gated, rejected);
+	    (unsigned long long)m->al.n_gated,
+	    (unsigned long long)m->n_primed, rejected);
 	if (a->tau > 0)
 		printf("memory    tau %g s\n", a->tau);
 	else if (a->lambda < 1)
@@ -407,7 +463,7 @@ cmd_fit(int argc, char **argv)
 	struct csv cv;
 	FILE *fp = NULL, *tr = NULL;
 	double phi[RLS_MAX_P], theta[RLS_MAX_P], se[RLS_MAX_P];
-	double lo[RLS_MAX_P], hi[RLS_MAX_P];
+	double lo[RLS_MAX_P], hi[RLS_MAX_P], ref[RLS_MAX_P];
 	double y = 0, w = 1, t = 0;
 	unsigned long rec = 0, rejected = 0;
 	char err[200], jbuf[65536];
@@ -445,24 +501,38 @@ cmd_fit(int argc, char **argv)
 			model_opts_default(&mo, c.k + a.intercept, a.intercept);
 			mo.lambda = a.lambda;
 			mo.tau = a.tau;
+			mo.alarm.gate_z = a.gate;
 			if (a.delta_set)
 				mo.delta = a.delta;
-			if ((m = model_new(&mo)) == NULL) {
+			if (a.terms != NULL)
+				m = new_terms_model(&a, &c, &mo);
+			else if ((m = model_new(&mo)) == NULL)
 				ctl_err("cannot create the model");
+			if (m == NULL)
 				goto done;
-			}
 			if (tr != NULL)
 				trace_header(tr, &c, mo.p);
 			first = 0;
 		}
 		w = 1;
 		t = (double)(rec + 1);
-		if (row_values(&cv, &c, a.intercept, phi, &y, &w, &t, err,
-		    sizeof(err)) != 0 ||
-		    (rc = model_step(m, phi, y, w, t, &so)) != 0) {
-			if (rc != 0 && m != NULL)
+		rc = row_values(&cv, &c, a.terms == NULL && a.intercept, phi,
+		    &y, &w, &t, err, sizeof(err));
+		if (rc == 0 && a.terms != NULL) {
+			phi[c.k] = y;	/* the target, for prev(target) */
+			rc = model_ingest(m, phi, y, w, t, &so);
+		} else if (rc == 0) {
+			rc = model_step(m, phi, y, w, t, &so);
+		}
+		if (rc == MODEL_PRIMED) {
+			rec++;
+			continue;
+		}
+		if (rc != 0) {
+			if (rc < 0)
 				snprintf(err, sizeof(err), "%s",
-				    rc == E_NUMERIC ? "value out of range" :
+				    rc == E_NUMERIC ? "a value or derived term is "
+				    "not finite or out of range (|v| > 1e100)" :
 				    "bad weight or time");
 			ctl_err("%s:%lu: %s; row not used", a.file, cv.lineno,
 			    err);
@@ -483,7 +553,11 @@ cmd_fit(int argc, char **argv)
 	rep.se = se;
 	rep.ci_lo = lo;
 	rep.ci_hi = hi;
-	model_report(m, &rep);
+	rep.ref = ref;
+	if (model_report(m, &rep) != 0) {
+		ctl_err("cannot compute the report");
+		goto done;
+	}
 	if (a.json) {
 		struct render_model rm;
 		struct json j;
@@ -493,7 +567,7 @@ cmd_fit(int argc, char **argv)
 		rm.features = c.coef_names;
 		rm.m = m;
 		rm.rep = &rep;
-		rm.reference = m->theta_pin;
+		rm.reference = ref;
 		rm.epoch_times = a.timecol != NULL;
 		json_init(&j, jbuf, sizeof(jbuf));
 		if (render_model(&j, &rm) != 0) {

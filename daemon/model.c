@@ -34,6 +34,7 @@
 #include "err.h"
 #include "limits.h"
 #include "model.h"
+#include "terms.h"
 
 static int
 finite_bounded(double v)
@@ -140,7 +141,8 @@ start_state(struct model *m)
 	m->frozen = 0;
 	m->last_t = 0;
 	m->has_last_t = 0;
-	m->n_seen = m->n_used = m->n_frozen = 0;
+	m->n_seen = m->n_used = m->n_frozen = m->n_primed = 0;
+	m->has_prev = 0;
 }
 
 static void
@@ -204,6 +206,8 @@ model_free(struct model *m)
 	if (m == NULL)
 		return;
 	rls_free(m->rls);
+	terms_free(m->terms);
+	free(m->xprev);
 	free(m);
 }
 
@@ -359,16 +363,53 @@ model_memory(double lambda)
 }
 
 /*
+ * Map coefficients (and diag(P) when have_dp) from the engine's centred
+ * and scaled terms to the user's terms: theta_o = M' theta_s,
+ * P_o = M' P_s M (terms_to_original). Needs the full P_s, from LAPACK.
+ */
+static int
+to_original(const struct model *m, double *theta, double *dp, int have_dp)
+{
+	double th[RLS_MAX_P], *Ps = NULL, *Po = NULL;
+	size_t p = (size_t)m->o.p;
+	int j, rc = 0;
+
+	memcpy(th, theta, sizeof(double) * p);
+	if (!have_dp) {
+		terms_to_original(m->terms, th, NULL, theta, NULL);
+		return 0;
+	}
+	Ps = malloc(sizeof(double) * p * p);
+	Po = malloc(sizeof(double) * p * p);
+	if (Ps == NULL || Po == NULL) {
+		rc = E_NOMEM;
+		goto fail;
+	}
+	if ((rc = rls_cov_unscaled(m->rls, Ps)) != 0)
+		goto fail;
+	terms_to_original(m->terms, th, Ps, theta, Po);
+	for (j = 0; j < (int)p; j++)
+		dp[j] = Po[(size_t)j * p + (size_t)j];
+fail:
+	free(Ps);
+	free(Po);
+	return rc;
+}
+
+/*
  * model_report: fill rep (its arrays must hold p values each; any may be
- * NULL to skip) from the current state. Coefficients are always given
- * (undetermined ones as 0); standard errors and intervals are NAN while the
- * model is undetermined or has no residual degrees of freedom. Returns 0.
+ * NULL to skip) from the current state, in the user's terms (mapped back
+ * from the engine's centred and scaled terms when the model has terms).
+ * Coefficients are always given (undetermined ones as 0); standard errors
+ * and intervals are NAN while the model is undetermined or has no residual
+ * degrees of freedom. Returns 0, or E_NOMEM / E_NUMERIC when the mapping
+ * back could not be computed (rep is then incomplete).
  */
 int
 model_report(const struct model *m, struct model_report *rep)
 {
 	double dp[RLS_MAX_P], theta[RLS_MAX_P], tq = NAN;
-	int j, p = m->o.p, have_dp;
+	int j, rc, p = m->o.p, have_dp;
 
 	rep->p = p;
 	rep->rank = rls_rank(m->rls);
@@ -386,6 +427,8 @@ model_report(const struct model *m, struct model_report *rep)
 	have_dp = rls_diag_p(m->rls, dp) == 0 && isfinite(rep->s.sigma);
 	if (have_dp && rep->s.dof > 0)
 		tq = dist_t_quantile(0.5 + m->o.level / 2, rep->s.dof);
+	if (m->terms != NULL && (rc = to_original(m, theta, dp, have_dp)) != 0)
+		return rc;
 	for (j = 0; j < p; j++) {
 		double se = have_dp ? rep->s.sigma * sqrt(dp[j]) : NAN;
 
@@ -397,6 +440,13 @@ model_report(const struct model *m, struct model_report *rep)
 			rep->ci_lo[j] = theta[j] - tq * se;
 		if (rep->ci_hi != NULL)
 			rep->ci_hi[j] = theta[j] + tq * se;
+	}
+	if (rep->ref != NULL) {
+		for (j = 0; j < p; j++)
+			rep->ref[j] = m->pinned ? m->theta_pin[j] : NAN;
+		if (m->pinned && m->terms != NULL)
+			terms_to_original(m->terms, m->theta_pin, NULL,
+			    rep->ref, NULL);
 	}
 	return 0;
 }
@@ -411,8 +461,11 @@ model_report_fast(const struct model *m, struct model_report *rep)
 	rep->p = m->o.p;
 	rep->rank = rls_rank(m->rls);
 	rep->determined = rep->rank == m->o.p;
-	if (rep->theta != NULL)
+	if (rep->theta != NULL) {
 		rls_theta(m->rls, rep->theta);
+		if (m->terms != NULL)
+			to_original(m, rep->theta, NULL, 0);
+	}
 	stats_report(&m->st, rls_rss(m->rls), m->o.p, m->o.intercept,
 	    m->rls->lampow, cur_lambda(m), &rep->s);
 	rep->lambda = cur_lambda(m);
@@ -501,4 +554,109 @@ model_reset(struct model *m)
 	rls_reset(m->rls, &ro);
 	start_state(m);
 	m->frozen = frozen;
+}
+
+/*
+ * model_set_terms: attach the compiled term list t (ownership passes to m,
+ * also on failure) so records can be given as raw field values with
+ * model_ingest. terms_p(t) must equal the model's p and the model must not
+ * have seen a record. scale_auto: fix the centring/scaling constants from
+ * the first accepted record (terms_scaling_auto), unless t already has
+ * constants. Returns 0, E_ARG (size mismatch or used model), E_NOMEM.
+ */
+int
+model_set_terms(struct model *m, struct terms *t, int scale_auto)
+{
+	int nf;
+
+	if (t == NULL || terms_p(t) != m->o.p || m->n_seen != 0 ||
+	    m->terms != NULL) {
+		terms_free(t);
+		return E_ARG;
+	}
+	nf = terms_nfields(t);
+	if ((m->xprev = calloc((size_t)(nf > 0 ? nf : 1), sizeof(double))) ==
+	    NULL) {
+		terms_free(t);
+		return E_NOMEM;
+	}
+	m->terms = t;
+	m->scale_auto = scale_auto;
+	m->has_prev = 0;
+	return 0;
+}
+
+/*
+ * model_ingest: one record given as raw field values x (terms_nfields
+ * values, declaration order), target y, weight w, time t. Every field must
+ * be finite and within +-1e100 (E_NUMERIC), as must every derived term.
+ * The first record of a model whose terms use prev() has no previous
+ * values: it is accepted, primes them, updates nothing else and returns
+ * MODEL_PRIMED. Otherwise as model_step. On any error the model, including
+ * its previous values and scaling constants, is unchanged.
+ */
+int
+model_ingest(struct model *m, const double *x, double y, double w, double t,
+    struct model_step_out *out)
+{
+	double phi[RLS_MAX_P];
+	int f, nf, rc;
+
+	if (m->terms == NULL)
+		return E_STATE;
+	nf = terms_nfields(m->terms);
+	for (f = 0; f < nf; f++)
+		if (!finite_bounded(x[f]))
+			return E_NUMERIC;
+	if (!finite_bounded(y))
+		return E_NUMERIC;
+	if (!(w >= 0) || !(w <= RLS_VALUE_MAX))
+		return E_ARG;
+	if (m->o.tau > 0 && !isfinite(t))
+		return E_ARG;
+	/* Auto scaling maps this record into |u| <= 1, so its own terms
+	 * cannot overflow below: the constants are never fixed by a record
+	 * that is then rejected. */
+	if (m->scale_auto && !terms_scaling_is_set(m->terms) &&
+	    (rc = terms_scaling_auto(m->terms, x, 1)) != 0)
+		return rc;
+	rc = terms_ingest(m->terms, x, m->has_prev ? m->xprev : NULL, phi);
+	if (rc == E_STATE) {
+		memcpy(m->xprev, x, sizeof(double) * (size_t)nf);
+		m->has_prev = 1;
+		m->n_primed++;
+		if (out != NULL) {
+			memset(out, 0, sizeof(*out));
+			out->yhat = out->e = out->z = out->f = NAN;
+		}
+		return MODEL_PRIMED;
+	}
+	if (rc != 0)
+		return rc;
+	if ((rc = model_step(m, phi, y, w, t, out)) != 0)
+		return rc;
+	memcpy(m->xprev, x, sizeof(double) * (size_t)nf);
+	m->has_prev = 1;
+	return 0;
+}
+
+/*
+ * model_predict_fields: as model_predict, from raw field values x (the
+ * terms are applied with the model's previous values). E_STATE when the
+ * model has no terms or a prev() term has no previous record yet;
+ * E_NUMERIC when a field or term is not finite.
+ */
+int
+model_predict_fields(const struct model *m, const double *x, double *yhat,
+    double *se, double *lo, double *hi)
+{
+	double phi[RLS_MAX_P];
+	int rc;
+
+	if (m->terms == NULL)
+		return E_STATE;
+	if ((rc = terms_eval(m->terms, x, m->has_prev ? m->xprev : NULL,
+	    phi)) != 0)
+		return rc;
+	return model_predict(m, phi, yhat, se, lo, hi);
 }

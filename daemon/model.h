@@ -15,6 +15,11 @@
 #include "rls.h"
 #include "stats.h"
 
+struct terms;
+
+/* model_ingest: the record only primed previous values (prev() terms). */
+#define MODEL_PRIMED	1
+
 struct model_opts {
 	int		 p;		/* coefficients (incl. intercept) */
 	int		 intercept;	/* 1 if phi[0] is the constant 1 */
@@ -65,7 +70,12 @@ struct model {
 	uint64_t	 n_used;	/* records that updated the fit */
 	uint64_t	 n_frozen;	/* records seen while frozen */
 	double		*theta0, *prior_sd, *reference, *tol_abs, *tol_pct;
-	double		*theta_pin;	/* p */
+	double		*theta_pin;	/* p, in the engine's (scaled) terms */
+	struct terms	*terms;		/* owned; NULL: callers give phi */
+	int		 scale_auto;	/* scale from the first record */
+	int		 has_prev;	/* xprev holds the previous record */
+	double		*xprev;		/* nfields raw values */
+	uint64_t	 n_primed;	/* records that only primed xprev */
 };
 
 /* Everything served about a model (arrays sized p, caller's storage). */
@@ -74,6 +84,7 @@ struct model_report {
 	double		*theta;		/* p */
 	double		*se;		/* p; NAN when undetermined */
 	double		*ci_lo, *ci_hi;	/* p; interval at o.level */
+	double		*ref;		/* p; pinned reference (NAN if none) */
 	struct stats_report s;
 	double		 lambda;	/* configured (or last applied) */
 	double		 memory;	/* effective memory 1/(1-lambda), recs */
@@ -95,6 +106,15 @@ void		 model_free(struct model *m);
 /* model_step: one record (phi, y, weight w, time t); transactional. */
 int		 model_step(struct model *m, const double *phi, double y,
 		    double w, double t, struct model_step_out *out);
+/* model_set_terms: attach derived terms (ownership passes to m). */
+int		 model_set_terms(struct model *m, struct terms *t,
+		    int scale_auto);
+/* model_ingest: one record of raw field values through the terms. */
+int		 model_ingest(struct model *m, const double *x, double y,
+		    double w, double t, struct model_step_out *out);
+/* model_predict_fields: model_predict from raw field values. */
+int		 model_predict_fields(const struct model *m, const double *x,
+		    double *yhat, double *se, double *lo, double *hi);
 /* model_report: fill rep from the current state. */
 int		 model_report(const struct model *m, struct model_report *rep);
 /* model_report_fast: theta and statistics only (no SEs, no LAPACK). */
