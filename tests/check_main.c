@@ -17,6 +17,8 @@ main(void)
 	int nfail, nrun;
 
 	sr = srunner_create(err_suite());
+	srunner_add_suite(sr, json_suite());
+	srunner_add_suite(sr, proto_suite());
 	srunner_run_all(sr, CK_NORMAL);
 	nfail = srunner_ntests_failed(sr);
 	nrun = srunner_ntests_run(sr);

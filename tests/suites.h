@@ -5,5 +5,7 @@
 #include <check.h>
 
 Suite *err_suite(void);
+Suite *json_suite(void);
+Suite *proto_suite(void);
 
 #endif
