@@ -238,13 +238,14 @@ proto_check_field_name(const char *s, size_t len)
 #define FAST_DIGITS	19	/* 10^19 - 1 < 2^64 */
 #define SLOW_COPY	128	/* tokens shorter than this are copied as is */
 /*
- * Significant digits kept in the normalised form. A double, or a point
- * halfway between two adjacent doubles, has at most 767 significant
- * decimal digits (2^-1075 = 5^1075 / 10^1075 and 5^1075 has 752 digits;
- * the widest normal halfway point needs 767), so truncating beyond 800
- * digits and appending a sticky '1' when a nonzero digit was cut keeps the
- * value strictly between the same two such points: strtod rounds it the
- * same way.
+ * Significant digits kept in the normalised form. A double has at most
+ * 767 significant decimal digits and a point halfway between two adjacent
+ * doubles at most 768: the widest is (2^54 - 1) * 2^-1075, whose digits are
+ * those of (2^54 - 1) * 5^1075 (counted with Python 3.11:
+ * len(str((2**54-1)*5**1075).rstrip('0')) == 768). All such points lie on
+ * the grid of the 800th digit, so cutting the digits after the 800th and
+ * appending a sticky '1' when a nonzero one was cut keeps the value
+ * strictly between the same two grid points: strtod rounds it the same.
  */
 #define SLOW_DIGITS	800
 /*
@@ -282,7 +283,7 @@ word_ieq(const char *s, size_t len, const char *w)
 
 /*
  * strtod on a bounded stack copy. s[0..len) already matched the grammar;
- * neg is its sign, exp its exponent (saturated at +-EXP_CAP).
+ * neg is its sign, exp its exponent (saturated at +-EXP_SAT).
  */
 static double
 slow_number(const char *s, size_t len, int neg, long long exp)
@@ -351,6 +352,170 @@ slow_number(const char *s, size_t len, int neg, long long exp)
 	return strtod(tmp, NULL);
 }
 
+/* What num_scan learnt about a number: value = (-1)^neg m 10^(e10+exp). */
+struct numscan {
+	uint64_t	 m;	/* first FAST_DIGITS significant digits */
+	long long	 e10;	/* minus the fraction digits kept in m */
+	long long	 exp;	/* the exponent part, saturated at EXP_SAT */
+	int		 neg;
+	int		 many;	/* digits were dropped from m */
+	const char	*stop;	/* first byte after the number */
+};
+
+#define ISDIGIT(c)	((unsigned char)((c) - '0') < 10)
+
+/*
+ * Match the longest prefix of p[0..end) that is a number of the grammar
+ * (an 'e' without digits after it is not part of it). Returns 0 and fills
+ * *ns, or E_ARG when no digit starts there. Leading zeros are skipped, so
+ * m holds the significant digits; past FAST_DIGITS of them m wraps
+ * (harmless: many is set and m is not used).
+ */
+static inline int
+num_scan(const char *p, const char *end, struct numscan *ns)
+{
+	const char *d0, *s0, *q;
+	uint64_t m = 0;
+	long long e10 = 0, exp = 0;
+	size_t nsig, ndig;
+	int eneg = 0;
+
+	ns->neg = 0;
+	if (p < end && (*p == '+' || *p == '-')) {
+		ns->neg = *p == '-';
+		p++;
+	}
+	d0 = p;
+	while (p < end && *p == '0')
+		p++;
+	s0 = p;
+	for (; p < end && ISDIGIT(*p); p++)
+		m = m * 10 + (uint64_t)(*p - '0');
+	nsig = (size_t)(p - s0);
+	ndig = (size_t)(p - d0);
+	if (p < end && *p == '.') {
+		q = ++p;
+		if (nsig == 0) {
+			/* 0.000ddd: the zeros only scale. */
+			while (p < end && *p == '0')
+				p++;
+			e10 = -(long long)(p - q);
+		}
+		s0 = p;
+		for (; p < end && ISDIGIT(*p); p++)
+			m = m * 10 + (uint64_t)(*p - '0');
+		e10 -= (long long)(p - s0);
+		nsig += (size_t)(p - s0);
+		ndig += (size_t)(p - q);
+	}
+	if (ndig == 0)
+		return E_ARG;
+	if (p < end && (*p == 'e' || *p == 'E')) {
+		q = p + 1;
+		if (q < end && (*q == '+' || *q == '-')) {
+			eneg = *q == '-';
+			q++;
+		}
+		if (q < end && ISDIGIT(*q)) {
+			for (p = q; p < end && ISDIGIT(*p); p++)
+				if (exp < EXP_SAT)
+					exp = exp * 10 + (*p - '0');
+			if (eneg)
+				exp = -exp;
+		}
+	}
+	ns->m = m;
+	ns->e10 = e10;
+	ns->exp = exp;
+	ns->many = nsig > FAST_DIGITS;
+	ns->stop = p;
+	return 0;
+}
+
+/*
+ * The value of the number s[0..ns->stop) scanned into *ns: 0 and *out, or
+ * E_NUMERIC when it overflows to infinity.
+ */
+static inline int
+num_value(const char *s, const struct numscan *ns, double *out)
+{
+	double d;
+
+#if FLT_EVAL_METHOD == 0
+	if (!ns->many) {
+		long long e = ns->e10 + ns->exp;
+		uint64_t m = ns->m;
+
+		if (m == 0) {
+			*out = ns->neg ? -0.0 : 0.0;
+			return 0;
+		}
+		if (m <= TWO53 && e >= -22 && e <= 22) {
+			d = (double)m;
+			d = e < 0 ? d / pow10_exact[-e] : d * pow10_exact[e];
+			*out = ns->neg ? -d : d;
+			return 0;
+		}
+		if (m <= TWO53 && e > 22 && e <= 22 + 15 &&
+		    m <= TWO53 / pow10_u64[e - 22]) {
+			d = (double)(m * pow10_u64[e - 22]) * 1e22;
+			*out = ns->neg ? -d : d;
+			return 0;
+		}
+	}
+#endif
+	d = slow_number(s, (size_t)(ns->stop - s), ns->neg, ns->exp);
+	if (!isfinite(d))
+		return E_NUMERIC;
+	*out = d;
+	return 0;
+}
+
+/*
+ * The common case in one pass: [-+]?D*(.D*)? with 1 to FAST_DIGITS digits
+ * (leading zeros counted, to stay simple) forming m <= 2^53, ending at a
+ * blank or at end. Then m / 10^(fraction digits) is Clinger's exact case.
+ * Returns 1 with *out and *stop set, or 0 (nothing written) to leave the
+ * token to num_scan/num_value, which give the same value for everything
+ * this accepts.
+ */
+static inline int
+quick_number(const char *p, const char *end, const char **stop, double *out)
+{
+	const char *q = p, *d0, *f0;
+	uint64_t m = 0;
+	size_t nd, nf = 0;
+	int neg = 0;
+	double d;
+
+	if (q < end && (*q == '-' || *q == '+'))
+		neg = *q++ == '-';
+	for (d0 = q; q < end && ISDIGIT(*q); q++)
+		m = m * 10 + (uint64_t)(*q - '0');
+	nd = (size_t)(q - d0);
+	if (q < end && *q == '.') {
+		for (f0 = ++q; q < end && ISDIGIT(*q); q++)
+			m = m * 10 + (uint64_t)(*q - '0');
+		nf = (size_t)(q - f0);
+		nd += nf;
+	}
+	if (nd == 0 || nd > FAST_DIGITS || m > TWO53 ||
+	    (q < end && !IS(*q, C_BLANK)))
+		return 0;
+#if FLT_EVAL_METHOD == 0
+	d = (double)m;
+	if (nf > 0)
+		d /= pow10_exact[nf];	/* nf <= 19 */
+	*out = neg ? -d : d;
+	*stop = q;
+	return 1;
+#else
+	(void)d;
+	(void)neg;
+	return 0;
+#endif
+}
+
 /*
  * proto_parse_number: read the decimal number s[0..len) (grammar above).
  * On success stores the value, bit-identical to glibc strtod in the "C"
@@ -362,81 +527,16 @@ slow_number(const char *s, size_t len, int neg, long long exp)
 int
 proto_parse_number(const char *s, size_t len, double *out)
 {
-	const char *p = s, *end = s + len, *q;
-	uint64_t m = 0;
-	long long e10 = 0, exp = 0;
-	int neg = 0, ndig = 0, sig = 0, many = 0, eneg = 0;
-	double d;
+	const char *p = s, *end = s + len, *stop;
+	struct numscan ns;
+	double v;
 
-	if (p < end && (*p == '+' || *p == '-')) {
-		neg = *p == '-';
-		p++;
+	if (quick_number(s, end, &stop, &v) && stop == end) {
+		*out = v;
+		return 0;
 	}
-	for (; p < end && IS(*p, C_DIGIT); p++, ndig++) {
-		if (sig < FAST_DIGITS) {
-			m = m * 10 + (uint64_t)(*p - '0');
-			sig += m != 0;
-		} else
-			many = 1;
-	}
-	if (p < end && *p == '.') {
-		for (p++; p < end && IS(*p, C_DIGIT); p++, ndig++) {
-			if (sig < FAST_DIGITS) {
-				m = m * 10 + (uint64_t)(*p - '0');
-				sig += m != 0;
-				e10--;
-			} else
-				many = 1;
-		}
-	}
-	if (ndig == 0)
-		goto bad;
-	if (p < end && (*p == 'e' || *p == 'E')) {
-		p++;
-		if (p < end && (*p == '+' || *p == '-')) {
-			eneg = *p == '-';
-			p++;
-		}
-		for (q = p; p < end && IS(*p, C_DIGIT); p++)
-			if (exp < EXP_SAT)
-				exp = exp * 10 + (*p - '0');
-		if (p == q)
-			goto bad;
-		if (eneg)
-			exp = -exp;
-	}
-	if (p != end)
-		goto bad;
-
-#if FLT_EVAL_METHOD == 0
-	if (!many) {
-		long long e = e10 + exp;
-
-		if (m == 0) {
-			*out = neg ? -0.0 : 0.0;
-			return 0;
-		}
-		if (m <= TWO53 && e >= -22 && e <= 22) {
-			d = (double)m;
-			d = e < 0 ? d / pow10_exact[-e] : d * pow10_exact[e];
-			*out = neg ? -d : d;
-			return 0;
-		}
-		if (m <= TWO53 && e > 22 && e <= 22 + 15 &&
-		    m <= TWO53 / pow10_u64[e - 22]) {
-			d = (double)(m * pow10_u64[e - 22]) * 1e22;
-			*out = neg ? -d : d;
-			return 0;
-		}
-	}
-#endif
-	d = slow_number(s, len, neg, exp);
-	if (!isfinite(d))
-		return E_NUMERIC;
-	*out = d;
-	return 0;
-bad:
-	p = s;
+	if (num_scan(s, end, &ns) == 0 && ns.stop == end)
+		return num_value(s, &ns, out);
 	if (p < end && (*p == '+' || *p == '-'))
 		p++;
 	if (word_ieq(p, (size_t)(end - p), "nan") ||
@@ -914,30 +1014,144 @@ dup_insert(uint16_t *slots, const struct proto_value *values, size_t idx)
 }
 
 /*
+ * Is the name just stored at msg->values[msg->nvalues] already among the
+ * earlier ones? Pairwise for a few names, then an open-addressing table
+ * built on first use (*hashed), so a line of 256 names costs O(n).
+ */
+static int
+is_dup(struct proto_msg *msg, uint16_t *slots, int *hashed)
+{
+	const struct proto_str *nm = &msg->values[msg->nvalues].name;
+	size_t i;
+
+	if (msg->nvalues < DUP_LINEAR) {
+		for (i = 0; i < msg->nvalues; i++)
+			if (same_name(&msg->values[i].name, nm->ptr, nm->len))
+				return 1;
+		return 0;
+	}
+	if (!*hashed) {
+		memset(slots, 0, DUP_SLOTS * sizeof(*slots));
+		for (i = 0; i < msg->nvalues; i++)
+			(void)dup_insert(slots, msg->values, i);
+		*hashed = 1;
+	}
+	return dup_insert(slots, msg->values, msg->nvalues);
+}
+
+static int
+too_many(struct proto_msg *msg)
+{
+	size_t n = 0;
+
+	msg->kind = PROTO_EMPTY;
+	msg->reason = PROTO_R_TOO_MANY_VALUES;
+	d_str(msg, &n, "more than ");
+	d_uint(msg, &n, PROTO_MAX_VALUES);
+	d_str(msg, &n, " values");
+	return PROTO_ERROR;
+}
+
+/* Does the number scanned end its token? */
+#define ENDS_TOKEN(c, ns) \
+	((ns).stop == (c)->end || IS(*(ns).stop, C_BLANK))
+
+/*
  * VALUES after the model (and time): positional or named. target: 1 on a
  * record line, where the first positional token is the target or `?`;
  * 0 for .predict, where every positional token is a regressor.
+ *
+ * Two fast paths read a plain number or NAME=number in one pass over the
+ * token; anything else (the `?` target, and every error) takes the
+ * general path, which reads the whole token first and gives the same
+ * results for the tokens the fast paths take.
  */
 static int
 parse_values(struct cursor *c, struct proto_msg *msg, int target)
 {
 	struct proto_str t;
-	const char *eq = NULL;
-	size_t k = 0, i, nlen;
+	struct numscan ns;
+	struct proto_value *val;
+	const char *eq = NULL, *p, *q;
+	size_t k = 0, nlen;
 	uint16_t slots[DUP_SLOTS];
 	int hashed = 0, rc;
+	double v;
 
-	while (next_token(c, &t, &eq)) {
-		if (++k > PROTO_MAX_VALUES) {
-			size_t n = 0;
+	for (;;) {
+		q = NULL;
+		for (p = c->p; p < c->end && IS(*p, C_BLANK); p++)
+			;
+		c->p = p;
+		if (p == c->end)
+			break;
+		if (++k > PROTO_MAX_VALUES)
+			return too_many(msg);
+		val = &msg->values[msg->nvalues];
 
-			msg->kind = PROTO_EMPTY;
-			msg->reason = PROTO_R_TOO_MANY_VALUES;
-			d_str(msg, &n, "more than ");
-			d_uint(msg, &n, PROTO_MAX_VALUES);
-			d_str(msg, &n, " values");
-			return PROTO_ERROR;
+		/* Fast path: a positional number. */
+		if (!msg->named && (quick_number(p, c->end, &q, &v) ||
+		    (num_scan(p, c->end, &ns) == 0 && ENDS_TOKEN(c, ns)))) {
+			if (q == NULL) {	/* not the quick case */
+				if (num_value(p, &ns, &v) != 0)
+					return reject_value(msg,
+					    PROTO_R_NON_FINITE, k, p,
+					    (size_t)(ns.stop - p),
+					    " is not a finite number");
+				q = ns.stop;
+			}
+			c->p = q;
+			if (target && k == 1) {
+				msg->target = v;
+				msg->has_target = 1;
+			} else {
+				val->name.ptr = NULL;
+				val->name.len = 0;
+				val->v = v;
+				msg->nvalues++;
+			}
+			continue;
 		}
+
+		/* Fast path: NAME=number. */
+		if (k == 1 || msg->named) {
+			for (q = p; q < c->end && IS(*q, C_FIELD); q++)
+				;
+			nlen = (size_t)(q - p);
+			if (q < c->end && *q == '=' && nlen > 0 &&
+			    nlen <= FIELD_NAME_MAX && IS(*p, C_FIELD0)) {
+				const char *num = q + 1, *stop = NULL;
+				int quick = quick_number(num, c->end, &stop,
+				    &val->v);
+
+				if (!quick && (num_scan(num, c->end, &ns) != 0 ||
+				    !ENDS_TOKEN(c, ns)))
+					goto general;
+				if (!quick)
+					stop = ns.stop;
+				msg->named = 1;
+				val->name.ptr = p;
+				val->name.len = nlen;
+				if (is_dup(msg, slots, &hashed))
+					return reject_value(msg,
+					    PROTO_R_DUPLICATE_FIELD, k, p,
+					    (size_t)(stop - p),
+					    ": field name already given on "
+					    "this line");
+				if (!quick && num_value(num, &ns, &val->v) != 0)
+					return reject_value(msg,
+					    PROTO_R_NON_FINITE, k, p,
+					    (size_t)(stop - p),
+					    " is not a finite number");
+				msg->nvalues++;
+				c->p = stop;
+				continue;
+			}
+		}
+
+general:
+		/* General path. */
+		(void)next_token(c, &t, &eq);
 		if (k == 1)
 			msg->named = eq != NULL;
 		else if ((eq != NULL) != msg->named)
@@ -946,25 +1160,23 @@ parse_values(struct cursor *c, struct proto_msg *msg, int target)
 			    "NAME=VALUE values" : " is NAME=VALUE after "
 			    "positional values");
 		if (!msg->named) {
-			if (target && k == 1) {
-				if (t.len == 1 && t.ptr[0] == '?') {
-					msg->kind = PROTO_PREDICT;
-					continue;
-				}
-				rc = value_number(msg, k, t.ptr, t.len, t.ptr,
-				    t.len, &msg->target);
-				if (rc != PROTO_MSG)
-					return rc;
-				msg->has_target = 1;
+			if (target && k == 1 && t.len == 1 && t.ptr[0] == '?') {
+				msg->kind = PROTO_PREDICT;
 				continue;
 			}
 			rc = value_number(msg, k, t.ptr, t.len, t.ptr, t.len,
-			    &msg->values[msg->nvalues].v);
+			    &val->v);
 			if (rc != PROTO_MSG)
 				return rc;
-			msg->values[msg->nvalues].name.ptr = NULL;
-			msg->values[msg->nvalues].name.len = 0;
-			msg->nvalues++;
+			/* Valid numbers normally take the fast path. */
+			if (target && k == 1) {
+				msg->target = val->v;
+				msg->has_target = 1;
+			} else {
+				val->name.ptr = NULL;
+				val->name.len = 0;
+				msg->nvalues++;
+			}
 			continue;
 		}
 		nlen = (size_t)(eq - t.ptr);
@@ -972,29 +1184,17 @@ parse_values(struct cursor *c, struct proto_msg *msg, int target)
 			return reject_value(msg, PROTO_R_BAD_FIELD_NAME, k,
 			    t.ptr, t.len, ": bad field name (1-32 of "
 			    "[A-Za-z0-9_], not starting with a digit)");
-		msg->values[msg->nvalues].name.ptr = t.ptr;
-		msg->values[msg->nvalues].name.len = nlen;
-		if (msg->nvalues < DUP_LINEAR) {
-			for (i = 0; i < msg->nvalues; i++)
-				if (same_name(&msg->values[i].name, t.ptr,
-				    nlen))
-					goto dup;
-		} else {
-			if (!hashed) {
-				memset(slots, 0, sizeof(slots));
-				for (i = 0; i < msg->nvalues; i++)
-					(void)dup_insert(slots, msg->values, i);
-				hashed = 1;
-			}
-			if (dup_insert(slots, msg->values, msg->nvalues))
-				goto dup;
-		}
+		val->name.ptr = t.ptr;
+		val->name.len = nlen;
+		if (is_dup(msg, slots, &hashed))
+			return reject_value(msg, PROTO_R_DUPLICATE_FIELD, k,
+			    t.ptr, t.len, ": field name already given on "
+			    "this line");
 		rc = value_number(msg, k, t.ptr, t.len, eq + 1,
-		    (size_t)(t.ptr + t.len - eq - 1),
-		    &msg->values[msg->nvalues].v);
+		    (size_t)(t.ptr + t.len - eq - 1), &val->v);
 		if (rc != PROTO_MSG)
 			return rc;
-		msg->nvalues++;
+		msg->nvalues++;		/* normally the fast path's job */
 	}
 	if (k == 0) {
 		size_t n = 0;
@@ -1006,9 +1206,6 @@ parse_values(struct cursor *c, struct proto_msg *msg, int target)
 		return PROTO_ERROR;
 	}
 	return PROTO_MSG;
-dup:
-	return reject_value(msg, PROTO_R_DUPLICATE_FIELD, k, t.ptr, t.len,
-	    ": field name already given on this line");
 }
 
 /* A positive decimal count 1..PROTO_COUNT_MAX, or E_ARG. */
@@ -1216,29 +1413,42 @@ proto_parse_line(const char *s, size_t len, uint64_t lineno,
 
 	c.p = s;
 	c.end = s + len;
-	if (!next_token(&c, &t, &eq) || t.ptr[0] == '#')
+	while (c.p < c.end && IS(*c.p, C_BLANK))
+		c.p++;
+	if (c.p == c.end || *c.p == '#')
 		return PROTO_MSG;	/* PROTO_EMPTY */
-	if (t.ptr[0] == '.')
+	if (*c.p == '.') {
+		(void)next_token(&c, &t, &eq);
 		return parse_command(&c, msg, &t);
+	}
 
-	if (proto_check_model_name(t.ptr, t.len) != 0)
-		return bad_name(msg, &t);
-	msg->model = t;
+	/* The model name, checked as it is scanned. */
+	{
+		const char *p = c.p;
+
+		while (p < c.end && IS(*p, C_MODEL))
+			p++;
+		if ((p < c.end && !IS(*p, C_BLANK)) || !IS(*c.p, C_ALNUM) ||
+		    (size_t)(p - c.p) > MODEL_NAME_MAX) {
+			(void)next_token(&c, &t, &eq);
+			return bad_name(msg, &t);
+		}
+		msg->model.ptr = c.p;
+		msg->model.len = (size_t)(p - c.p);
+		c.p = p;
+	}
 	msg->kind = PROTO_RECORD;
 
 	/* Optional @TIME right after the model. */
-	{
-		struct cursor save = c;
-
-		if (next_token(&c, &t, &eq) && t.ptr[0] == '@') {
-			if (proto_parse_time(t.ptr + 1, t.len - 1,
-			    &msg->time) != 0)
-				return reject(msg, PROTO_R_BAD_TIME, NULL,
-				    t.ptr, t.len, " is not a valid time "
-				    "(epoch seconds or RFC 3339 date-time)");
-			msg->has_time = 1;
-		} else
-			c = save;
+	while (c.p < c.end && IS(*c.p, C_BLANK))
+		c.p++;
+	if (c.p < c.end && *c.p == '@') {
+		(void)next_token(&c, &t, &eq);
+		if (proto_parse_time(t.ptr + 1, t.len - 1, &msg->time) != 0)
+			return reject(msg, PROTO_R_BAD_TIME, NULL, t.ptr,
+			    t.len, " is not a valid time (epoch seconds or "
+			    "RFC 3339 date-time)");
+		msg->has_time = 1;
 	}
 	return parse_values(&c, msg, 1);
 }

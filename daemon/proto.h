@@ -135,7 +135,8 @@ struct proto_value {
  *             token in double quotes (shortened to fit, never split inside
  *             a UTF-8 character; never quoting an .auth token); otherwise
  *             "". Always NUL-terminated.
- *   cmd       the command, PROTO_CMD_NONE for a record line.
+ *   cmd       the command, PROTO_CMD_NONE for a record line; on
+ *             PROTO_ERROR set when the command word itself was known.
  *   model     the model name; for a record, .predict and commands taking a
  *             NAME. {NULL, 0} when there is none (and for `.watch *`). On
  *             PROTO_ERROR it is set if the name was read and valid before

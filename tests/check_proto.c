@@ -659,6 +659,41 @@ START_TEST(test_proto_numbers_random_vs_strtod)
 }
 END_TEST
 
+START_TEST(test_proto_numbers_in_lines_vs_strtod)
+{
+	/* The record parser reads numbers through its own fast paths
+	 * (positional and NAME=VALUE); they must agree with strtod too. */
+	static char s[1200], line[2600];
+	uint64_t seed = 424242;
+	size_t n;
+	double ref;
+	int i, rc, mismatches = 0;
+
+	for (i = 0; i < 200000; i++) {
+		n = gen_number(&seed, s);
+		ref = strtod(s, NULL);
+		snprintf(line, sizeof(line), i % 2 ? "m %s %s" : "m x=%s y=%s",
+		    s, s);
+		rc = proto_parse_line(line, strlen(line), 1, &msg);
+		if (isinf(ref)) {
+			if (rc != PROTO_ERROR || msg.reason != PROTO_R_NON_FINITE)
+				mismatches++;
+		} else if (rc != PROTO_MSG ||
+		    !same_bits(msg.values[i % 2 ? 0 : 1].v, ref) ||
+		    (i % 2 && !same_bits(msg.target, ref)) ||
+		    (i % 2 == 0 && !same_bits(msg.values[0].v, ref))) {
+			if (mismatches < 5)
+				fprintf(stderr, "mismatch in line \"%.80s\"\n",
+				    line);
+			mismatches++;
+		}
+	}
+	(void)n;
+	ck_assert_msg(mismatches == 0, "%d lines disagree with strtod",
+	    mismatches);
+}
+END_TEST
+
 START_TEST(test_proto_numbers_mutated_vs_regex)
 {
 	/* The grammar, as a POSIX ERE: an oracle independent of our code. */
@@ -1598,6 +1633,7 @@ proto_suite(void)
 	tcase_add_test(tc, test_proto_numbers_values);
 	tcase_add_test(tc, test_proto_numbers_long);
 	tcase_add_test(tc, test_proto_numbers_random_vs_strtod);
+	tcase_add_test(tc, test_proto_numbers_in_lines_vs_strtod);
 	tcase_add_test(tc, test_proto_numbers_mutated_vs_regex);
 	suite_add_tcase(s, tc);
 
