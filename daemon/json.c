@@ -401,8 +401,9 @@ json_int(struct json *j, int64_t v)
  * json_format_double: write the shortest of "%.15g", "%.16g", "%.17g" that
  * strtod reads back to the same bits of v into out (NUL-terminated), or
  * "null" when v is not finite (JSON has no NaN or infinity). 17 significant
- * digits always identify a double (IEEE 754-2008 §5.12.2), so the last try
- * cannot fail. Needs the "C" numeric locale (the daemon never changes it).
+ * digits always identify a double (IEEE 754-2008 §5.12.2, from memory;
+ * tests/check_json.c checks 1e5 random doubles), so the last try cannot
+ * fail. Needs the "C" numeric locale (the daemon never changes it).
  * Returns the length written, or E_ARG when outlen < 32.
  */
 int

@@ -974,7 +974,8 @@ value_number(struct proto_msg *msg, size_t k, const char *tok,
 #define DUP_LINEAR	16	/* up to this many names: pairwise compare */
 #define DUP_SLOTS	512	/* hash slots (> 2 * PROTO_MAX_VALUES) */
 
-/* FNV-1a (Fowler, Noll, Vo), 32-bit. */
+/* FNV-1a (Fowler, Noll, Vo), 32-bit; constants from memory (any hash
+ * would do: collisions only cost a comparison). */
 static uint32_t
 name_hash(const char *s, size_t len)
 {
@@ -991,7 +992,8 @@ name_hash(const char *s, size_t len)
 static int
 same_name(const struct proto_str *a, const char *s, size_t len)
 {
-	return a->len == len && memcmp(a->ptr, s, len) == 0;
+	return a->len == len && a->ptr[0] == s[0] &&
+	    memcmp(a->ptr, s, len) == 0;
 }
 
 /*
@@ -1546,6 +1548,10 @@ proto_next(struct proto_reader *rd, const char *buf, size_t len,
 	const char *nl;
 	size_t off = 0, n;
 
+	if (len == 0) {		/* buf may be NULL then */
+		*used = 0;
+		return PROTO_NEED_MORE;
+	}
 	for (;;) {
 		nl = off < len ? memchr(buf + off, '\n', len - off) : NULL;
 		if (rd->skipping) {
@@ -1570,7 +1576,8 @@ proto_next(struct proto_reader *rd, const char *buf, size_t len,
 			return too_long(rd, msg);
 		}
 		if (nl == NULL) {
-			memcpy(rd->buf + rd->len, buf + off, n);
+			if (n > 0)
+				memcpy(rd->buf + rd->len, buf + off, n);
 			rd->len += n;
 			*used = len;
 			return PROTO_NEED_MORE;

@@ -1597,8 +1597,15 @@ END_TEST
 START_TEST(test_proto_reader_new_bounds)
 {
 	struct proto_reader *rd;
+	size_t used;
 
 	ck_assert_ptr_null(proto_reader_new(0));
+	rd = proto_reader_new(8);
+	used = 99;
+	ck_assert_int_eq(proto_next(rd, NULL, 0, &used, &msg),
+	    PROTO_NEED_MORE);
+	ck_assert_uint_eq(used, 0);
+	proto_reader_free(rd);
 	ck_assert_ptr_null(proto_reader_new(PROTO_LINE_MAX + 1));
 	rd = proto_reader_new(PROTO_LINE_MAX);
 	ck_assert_ptr_nonnull(rd);
