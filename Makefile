@@ -39,6 +39,9 @@ FINAL_LDFLAGS = $(HARDEN_LD) $(LDFLAGS) $(SAN)
 # the daemon, the client and the unit tests link. Add new pure modules here.
 CORE_SRC = \
 	daemon/alarm.c \
+	daemon/cmd.c \
+	daemon/conf.c \
+	daemon/registry.c \
 	daemon/dist.c \
 	daemon/err.c \
 	daemon/json.c \
@@ -50,7 +53,9 @@ CORE_SRC = \
 	daemon/terms.c
 # Daemon-only modules (may use libuv and I/O).
 DAEMON_SRC = \
-	daemon/main.c
+	daemon/log.c \
+	daemon/main.c \
+	daemon/net.c
 CLIENT_SRC = \
 	client/csv.c \
 	client/fit.c \

@@ -15,6 +15,7 @@
 
 #include "coefctl.h"
 #include "csv.h"
+#include "err.h"
 #include "json.h"
 #include "limits.h"
 #include "model.h"

@@ -2,6 +2,9 @@
 /*
  * err: text for the project's error codes. Pure, no state.
  */
+#include <stdarg.h>
+#include <stdio.h>
+
 #include "err.h"
 
 /*
@@ -26,4 +29,20 @@ err_str(int code)
 	case E_CORRUPT:		return "corrupt data";
 	}
 	return "unknown error";
+}
+
+/*
+ * err_printf: vsnprintf into buf[0..len): detail texts are cut to fit on
+ * purpose (they go into fixed-size reply and log fields).
+ */
+void
+err_printf(char *buf, size_t len, const char *fmt, ...)
+{
+	va_list ap;
+
+	if (len == 0)
+		return;
+	va_start(ap, fmt);
+	vsnprintf(buf, len, fmt, ap);
+	va_end(ap);
 }

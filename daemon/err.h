@@ -7,6 +7,8 @@
 #ifndef COEFD_ERR_H
 #define COEFD_ERR_H
 
+#include <stddef.h>
+
 enum err {
 	E_OK = 0,
 	E_ARG = -1,	/* bad argument or malformed input value */
@@ -24,5 +26,8 @@ enum err {
 
 /* err_str: fixed English text for code (0 or negative); never NULL. */
 const char *err_str(int code);
+/* err_printf: format a detail message into buf (truncated to fit). */
+void	err_printf(char *buf, size_t len, const char *fmt, ...)
+	    __attribute__((format(printf, 3, 4)));
 
 #endif

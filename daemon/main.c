@@ -1,10 +1,533 @@
 /* SPDX-License-Identifier: ISC */
-/* coefd: placeholder entry point until the daemon lands (issue 3). */
+/*
+ * coefd: argv, the configuration check (-n), loop setup, signals and the
+ * shutdown order. Wires conf -> registry -> cmd <- net. Runs in the
+ * foreground and logs to stderr (journald under systemd).
+ */
+#include <errno.h>
+#include <fcntl.h>
+#include <getopt.h>
+#include <signal.h>
 #include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <sys/stat.h>
+#include <time.h>
+#include <unistd.h>
+
+#include <uv.h>
+
+#include "cmd.h"
+#include "conf.h"
+#include "err.h"
+#include "log.h"
+#include "net.h"
+#include "registry.h"
+
+#ifndef COEFD_VERSION
+#define COEFD_VERSION	"0.1.0"
+#endif
+#ifndef SYSCONFDIR
+#define SYSCONFDIR	"/etc"
+#endif
+#define DEFAULT_CONF	SYSCONFDIR "/coefd/coefd.conf"
+#define EXIT_CONFIG	78	/* EX_CONFIG: systemd will not restart */
+#define SHUTDOWN_MS	5000
+
+struct daemon {
+	uv_loop_t	 loop;
+	const char	*conf_path;
+	const char	*socket_override;
+	struct conf	*conf;
+	struct registry	*reg;
+	struct net	*net;
+	struct cmd_ctx	 cmd;
+	char		*token;
+	uv_signal_t	 sig_hup, sig_term, sig_int;
+	int		 stopping;
+	int		 verbose;
+};
+
+struct bcast {
+	const struct reg_entry *e;
+	int		 every_n;
+};
+
+static double
+now_real(void)
+{
+	struct timespec ts;
+
+	clock_gettime(CLOCK_REALTIME, &ts);
+	return (double)ts.tv_sec + (double)ts.tv_nsec * 1e-9;
+}
+
+/* Read a whole file (at most max bytes) into a new NUL-terminated buffer. */
+static char *
+read_file(const char *path, size_t max, size_t *len, char *err, size_t elen)
+{
+	struct stat sb;
+	char *buf = NULL;
+	ssize_t n;
+	size_t got = 0;
+	int fd;
+
+	if ((fd = open(path, O_RDONLY | O_CLOEXEC)) < 0) {
+		snprintf(err, elen, "%s: %s", path, strerror(errno));
+		return NULL;
+	}
+	if (fstat(fd, &sb) != 0 || !S_ISREG(sb.st_mode)) {
+		snprintf(err, elen, "%s: not a regular file", path);
+		goto fail;
+	}
+	if ((size_t)sb.st_size > max) {
+		snprintf(err, elen, "%s: larger than %zu bytes", path, max);
+		goto fail;
+	}
+	if ((buf = malloc((size_t)sb.st_size + 1)) == NULL) {
+		snprintf(err, elen, "%s: out of memory", path);
+		goto fail;
+	}
+	while (got < (size_t)sb.st_size) {
+		n = read(fd, buf + got, (size_t)sb.st_size - got);
+		if (n < 0 && errno == EINTR)
+			continue;
+		if (n <= 0) {
+			snprintf(err, elen, "%s: read: %s", path,
+			    n < 0 ? strerror(errno) : "file shrank");
+			goto fail;
+		}
+		got += (size_t)n;
+	}
+	buf[got] = '\0';
+	*len = got;
+	close(fd);
+	return buf;
+fail:
+	free(buf);
+	close(fd);
+	return NULL;
+}
+
+/* Parse the config file; on error a "file:line: message" in err. */
+static struct conf *
+load_conf(const char *path, char *err, size_t elen)
+{
+	struct conf_error ce;
+	struct conf *c = NULL;
+	size_t len;
+	char *text;
+
+	if ((text = read_file(path, CONF_FILE_MAX, &len, err, elen)) == NULL)
+		return NULL;
+	memset(&ce, 0, sizeof(ce));
+	if (conf_parse(text, len, &c, &ce) != 0) {
+		if (ce.line > 0)
+			snprintf(err, elen, "%s:%d: %s", path, ce.line, ce.msg);
+		else
+			snprintf(err, elen, "%s: %s", path, ce.msg);
+		c = NULL;
+	}
+	free(text);
+	return c;
+}
+
+static char *
+load_token(const struct conf *c, char *err, size_t elen)
+{
+	size_t len;
+	char *t;
+
+	if (c->d.token_file[0] == '\0')
+		return NULL;
+	if ((t = read_file(c->d.token_file, 4096, &len, err, elen)) == NULL)
+		return NULL;
+	while (len > 0 && (t[len - 1] == '\n' || t[len - 1] == '\r' ||
+	    t[len - 1] == ' '))
+		t[--len] = '\0';
+	if (len == 0) {
+		snprintf(err, elen, "%s: empty token", c->d.token_file);
+		free(t);
+		return NULL;
+	}
+	return t;
+}
+
+static void
+net_opts_of(const struct daemon *d, const struct conf *c, struct net_opts *o)
+{
+	memset(o, 0, sizeof(*o));
+	o->unix_path = d->socket_override != NULL ? d->socket_override :
+	    c->d.socket;
+	o->unix_mode = (int)c->d.socket_mode;
+	if (c->d.tcp.on) {
+		o->tcp_host = c->d.tcp.host;
+		o->tcp_port = c->d.tcp.port;
+	}
+	if (c->d.udp.on) {
+		o->udp_host = c->d.udp.host;
+		o->udp_port = c->d.udp.port;
+	}
+	o->admin_from_tcp = c->d.admin_from_tcp;
+	o->tcp_token = c->d.token_file[0] != '\0';
+	o->max_line = (size_t)c->d.max_line;
+	o->out_cap = (size_t)c->d.output_buffer;
+	o->max_conns = (unsigned)c->d.max_connections;
+	o->max_conns_per_uid = (unsigned)c->d.max_connections_per_uid;
+	o->idle_ms = (uint64_t)(c->d.idle_timeout * 1000);
+	o->stuck_ms = (uint64_t)(c->d.stuck_timeout * 1000);
+	o->fd_unix = -1;
+	o->fd_tcp = -1;
+}
+
+static int
+level_of(const struct daemon *d, const struct conf *c)
+{
+	return d->verbose ? LOG_LVL_DEBUG : LOG_LVL_ERR + (int)c->d.log_level;
+}
+
+/* --- hooks for the command layer --- */
+
+static int
+bcast_match(const struct session *s, void *arg)
+{
+	const struct bcast *b = arg;
+
+	if (s->watch_model[0] != '\0' && strcmp(s->watch_model, b->e->name))
+		return 0;
+	if (b->every_n)
+		return s->watch_every > 0 &&
+		    b->e->n_updates % s->watch_every == 0;
+	return 1;
+}
+
+static void
+hook_broadcast(void *arg, const struct reg_entry *e, int every_n,
+    const char *line, size_t len)
+{
+	struct daemon *d = arg;
+	struct bcast b = { e, every_n };
+
+	net_broadcast(d->net, bcast_match, &b, line, len);
+}
+
+static uint64_t
+rss_bytes(void)
+{
+	unsigned long size = 0, res = 0;
+	FILE *fp;
+
+	if ((fp = fopen("/proc/self/statm", "r")) == NULL)
+		return 0;
+	if (fscanf(fp, "%lu %lu", &size, &res) != 2)
+		res = 0;
+	fclose(fp);
+	return (uint64_t)res * (uint64_t)sysconf(_SC_PAGESIZE);
+}
+
+static void
+hook_stats(void *arg, struct json *j)
+{
+	struct daemon *d = arg;
+	struct net_stats st;
+
+	net_get_stats(d->net, &st);
+	json_key(j, "connections");
+	json_uint(j, st.conns);
+	json_key(j, "connections_total");
+	json_uint(j, st.conns_total);
+	json_key(j, "connections_refused");
+	json_uint(j, st.refused);
+	json_key(j, "dropped_stuck");
+	json_uint(j, st.dropped_stuck);
+	json_key(j, "dropped_idle");
+	json_uint(j, st.dropped_idle);
+	json_key(j, "datagrams");
+	json_uint(j, st.datagrams);
+	json_key(j, "bytes_in");
+	json_uint(j, st.bytes_in);
+	json_key(j, "bytes_out");
+	json_uint(j, st.bytes_out);
+	json_key(j, "output_buffered");
+	json_uint(j, st.out_buffered);
+	json_key(j, "memory_rss");
+	json_uint(j, rss_bytes());
+}
+
+static int
+do_reload(struct daemon *d, char *msg, size_t len, int *kept, int *stale,
+    int *orphan)
+{
+	struct net_opts no;
+	struct conf *c;
+	char *tok = NULL;
+
+	if ((c = load_conf(d->conf_path, msg, len)) == NULL)
+		return E_ARG;
+	if (c->d.token_file[0] != '\0' &&
+	    (tok = load_token(c, msg, len)) == NULL) {
+		conf_free(c);
+		return E_ARG;
+	}
+	registry_set_conf(d->reg, c, kept, stale, orphan);
+	conf_free(d->conf);
+	d->conf = c;
+	free(d->token);
+	d->token = tok;
+	d->cmd.token = tok;
+	net_opts_of(d, c, &no);
+	net_apply_opts(d->net, &no);
+	log_set_level(level_of(d, c));
+	log_notice("configuration reloaded from %s: %d models kept, %d stale "
+	    "(term list changed; .reset applies it), %d without a section "
+	    "(kept)", d->conf_path, *kept, *stale, *orphan);
+	return 0;
+}
+
+static int
+hook_reload(void *arg, char *msg, size_t len, int *kept, int *stale,
+    int *orphan)
+{
+	return do_reload(arg, msg, len, kept, stale, orphan);
+}
+
+/* --- network callbacks --- */
+
+static int
+on_msg(void *arg, struct session *s, const struct proto_msg *msg,
+    struct json *j)
+{
+	struct daemon *d = arg;
+
+	return cmd_handle(&d->cmd, s, msg, now_real(), j) ? NET_REPLY :
+	    NET_NOREPLY;
+}
+
+static void
+on_conn(void *arg, struct session *s, int opened)
+{
+	struct daemon *d = arg;
+
+	if (!opened)
+		cmd_session_closed(&d->cmd, s);
+}
+
+static void
+on_refused(void *arg, enum proto_reason why)
+{
+	struct daemon *d = arg;
+
+	d->cmd.st.rejected[why]++;
+}
+
+/* --- signals and shutdown --- */
+
+static void
+walk_close(uv_handle_t *h, void *arg)
+{
+	(void)arg;
+	if (!uv_is_closing(h))
+		uv_close(h, NULL);
+}
+
+static void
+net_closed(void *arg)
+{
+	struct daemon *d = arg;
+
+	/* Everything else (signal handles) goes now; the loop then ends. */
+	uv_walk(&d->loop, walk_close, NULL);
+}
+
+static void
+shutdown_start(struct daemon *d, const char *why)
+{
+	if (d->stopping) {
+		log_warnx("%s again: exiting at once", why);
+		exit(1);
+	}
+	d->stopping = 1;
+	log_notice("%s: shutting down (%zu models)", why,
+	    registry_count(d->reg));
+	net_stop_listening(d->net);
+	net_close_all(d->net, SHUTDOWN_MS, net_closed, d);
+}
+
+static void
+signal_cb(uv_signal_t *h, int signum)
+{
+	struct daemon *d = h->data;
+	char msg[300];
+	int kept, stale, orphan;
+
+	switch (signum) {
+	case SIGHUP:
+		if (d->stopping)
+			return;
+		if (do_reload(d, msg, sizeof(msg), &kept, &stale, &orphan) != 0)
+			log_warnx("reload failed, keeping the running "
+			    "configuration: %s", msg);
+		break;
+	case SIGTERM:
+		shutdown_start(d, "SIGTERM");
+		break;
+	case SIGINT:
+		shutdown_start(d, "SIGINT");
+		break;
+	default:
+		break;
+	}
+}
+
+static int
+start_signal(struct daemon *d, uv_signal_t *h, int signum)
+{
+	int rc;
+
+	if ((rc = uv_signal_init(&d->loop, h)) != 0)
+		return rc;
+	h->data = d;
+	return uv_signal_start(h, signal_cb, signum);
+}
+
+static void
+usage(FILE *fp)
+{
+	fprintf(fp, "usage: coefd [-nvV] [-c FILE] [-s SOCKET]\n"
+	    "  -c FILE    configuration (default " DEFAULT_CONF ")\n"
+	    "  -n         check the configuration and exit (0 ok, 78 bad)\n"
+	    "  -s SOCKET  listen on this Unix socket instead of the "
+	    "configured one\n"
+	    "  -v         log debug messages\n"
+	    "  -V         print the version and exit\n");
+}
 
 int
-main(void)
+main(int argc, char **argv)
 {
-	fprintf(stderr, "coefd: the daemon is not built yet\n");
-	return 1;
+	static const struct option lo[] = {
+		{ "config", required_argument, NULL, 'c' },
+		{ "check", no_argument, NULL, 'n' },
+		{ "socket", required_argument, NULL, 's' },
+		{ "verbose", no_argument, NULL, 'v' },
+		{ "version", no_argument, NULL, 'V' },
+		{ "help", no_argument, NULL, 'h' },
+		{ NULL, 0, NULL, 0 }
+	};
+	struct daemon d;
+	struct net_handler nh;
+	struct net_opts no;
+	char err[400];
+	int ch, check = 0, rc, i;
+
+	/* Matrices are small: OpenBLAS must not start worker threads. It
+	 * reads the variable when the library loads, so re-execute once. */
+	if (getenv("OPENBLAS_NUM_THREADS") == NULL &&
+	    setenv("OPENBLAS_NUM_THREADS", "1", 1) == 0)
+		execv("/proc/self/exe", argv);
+
+	memset(&d, 0, sizeof(d));
+	d.conf_path = DEFAULT_CONF;
+	while ((ch = getopt_long(argc, argv, "c:ns:vVh", lo, NULL)) != -1) {
+		switch (ch) {
+		case 'c':
+			d.conf_path = optarg;
+			break;
+		case 'n':
+			check = 1;
+			break;
+		case 's':
+			d.socket_override = optarg;
+			break;
+		case 'v':
+			d.verbose = 1;
+			break;
+		case 'V':
+			printf("coefd %s (protocol %d)\n", COEFD_VERSION,
+			    PROTO_VERSION);
+			return 0;
+		case 'h':
+			usage(stdout);
+			return 0;
+		default:
+			usage(stderr);
+			return 2;
+		}
+	}
+	if (optind != argc) {
+		usage(stderr);
+		return 2;
+	}
+	log_init(LOG_LVL_INFO);
+	if ((d.conf = load_conf(d.conf_path, err, sizeof(err))) == NULL) {
+		fprintf(stderr, "%s\n", err);
+		return EXIT_CONFIG;
+	}
+	if (check) {
+		int nm = 0, nt = 0;
+
+		for (i = 0; i < d.conf->nmodels; i++)
+			d.conf->models[i].is_template ? nt++ : nm++;
+		printf("%s: ok (%d models, %d templates)\n", d.conf_path, nm,
+		    nt);
+		conf_free(d.conf);
+		return 0;
+	}
+	log_init(level_of(&d, d.conf));
+	if (d.conf->d.token_file[0] != '\0' &&
+	    (d.token = load_token(d.conf, err, sizeof(err))) == NULL) {
+		log_errx("%s", err);
+		conf_free(d.conf);
+		return EXIT_CONFIG;
+	}
+	signal(SIGPIPE, SIG_IGN);
+	if ((rc = uv_loop_init(&d.loop)) != 0)
+		fatalx("uv_loop_init: %s", uv_strerror(rc));
+	if ((d.reg = registry_new(d.conf)) == NULL)
+		fatalx("out of memory");
+	d.cmd.reg = d.reg;
+	d.cmd.token = d.token;
+	d.cmd.started = now_real();
+	d.cmd.version = COEFD_VERSION;
+	d.cmd.hooks.arg = &d;
+	d.cmd.hooks.broadcast = hook_broadcast;
+	d.cmd.hooks.stats = hook_stats;
+	d.cmd.hooks.reload = hook_reload;
+
+	memset(&nh, 0, sizeof(nh));
+	nh.arg = &d;
+	nh.on_msg = on_msg;
+	nh.on_conn = on_conn;
+	nh.on_refused = on_refused;
+	net_opts_of(&d, d.conf, &no);
+	if ((rc = net_start(&d.loop, &no, &nh, &d.net, err, sizeof(err))) != 0) {
+		log_errx("%s", err);
+		if (d.net != NULL) {
+			uv_walk(&d.loop, walk_close, NULL);
+			uv_run(&d.loop, UV_RUN_DEFAULT);
+			net_free(d.net);
+		}
+		registry_free(d.reg);
+		conf_free(d.conf);
+		free(d.token);
+		return 1;
+	}
+	if (start_signal(&d, &d.sig_hup, SIGHUP) != 0 ||
+	    start_signal(&d, &d.sig_term, SIGTERM) != 0 ||
+	    start_signal(&d, &d.sig_int, SIGINT) != 0)
+		fatalx("cannot install signal handlers");
+	log_notice("coefd %s ready: socket %s%s%s, %d configured sections",
+	    COEFD_VERSION, no.unix_path, d.conf->d.tcp.on ? ", tcp on" : "",
+	    d.conf->d.udp.on ? ", udp on" : "", d.conf->nmodels);
+
+	uv_run(&d.loop, UV_RUN_DEFAULT);
+
+	if ((rc = uv_loop_close(&d.loop)) != 0)
+		log_warnx("loop close: %s", uv_strerror(rc));
+	log_notice("stopped");
+	net_free(d.net);
+	registry_free(d.reg);
+	conf_free(d.conf);
+	free(d.token);
+	return 0;
 }

@@ -63,6 +63,7 @@ static const char *const reason_str[PROTO_NREASONS] = {
 	[PROTO_R_FROZEN] = "frozen",
 	[PROTO_R_BUSY] = "busy",
 	[PROTO_R_INTERNAL] = "internal",
+	[PROTO_R_NOT_READY] = "not_ready",
 };
 
 /*

@@ -41,7 +41,7 @@ read_csv(const char *file, char names[NCOLS][24], double rows[NREC][NCOLS],
 			if (s != NULL)
 				*s++ = '\0';
 			if (r < 0)
-				snprintf(names[c], 24, "%s", tok);
+				snprintf(names[c], 24, "%.23s", tok);
 			else
 				rows[r][c] = *tok ? strtod(tok, NULL) : NAN;
 			if (s == NULL)

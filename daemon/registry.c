@@ -1,0 +1,623 @@
+/* SPDX-License-Identifier: ISC */
+/*
+ * registry: name -> model entries in an open-addressing hash table (linear
+ * probing, FNV-1a, grown at 70% load; models are never removed while the
+ * daemon runs). PURE: no I/O, no clocks, no logging; allocation happens
+ * when a model is created, never per record.
+ *
+ * Records: positional values map to the model's declared fields in order
+ * (the target comes first on the line and is parsed separately); named
+ * values map by name, the target by the model's target name; a line
+ * without a target is a prediction request. Raw vectors have nfields + 1
+ * entries, the target last, so prev(target) terms work.
+ */
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "err.h"
+#include "registry.h"
+#include "terms.h"
+
+struct registry {
+	struct reg_entry **slot;
+	size_t		  cap;		/* power of two */
+	size_t		  count;
+	const struct conf *conf;
+};
+
+static uint64_t
+hash(const char *s, size_t len)
+{
+	uint64_t h = 1469598103934665603ULL;
+	size_t i;
+
+	for (i = 0; i < len; i++) {
+		h ^= (unsigned char)s[i];
+		h *= 1099511628211ULL;
+	}
+	return h;
+}
+
+/*
+ * registry_new: an empty registry using config c (borrowed: the caller
+ * keeps c alive until registry_set_conf replaces it or registry_free).
+ * Returns NULL when out of memory.
+ */
+struct registry *
+registry_new(const struct conf *c)
+{
+	struct registry *r;
+
+	if ((r = calloc(1, sizeof(*r))) == NULL)
+		return NULL;
+	r->cap = 64;
+	if ((r->slot = calloc(r->cap, sizeof(*r->slot))) == NULL) {
+		free(r);
+		return NULL;
+	}
+	r->conf = c;
+	return r;
+}
+
+/* registry_entry_free: release e and its model; NULL is a no-op. */
+void
+registry_entry_free(struct reg_entry *e)
+{
+	if (e == NULL)
+		return;
+	model_free(e->m);
+	free(e->fields);
+	free(e->hist);
+	free(e);
+}
+
+/* registry_free: release every entry and r; NULL is a no-op. */
+void
+registry_free(struct registry *r)
+{
+	size_t i;
+
+	if (r == NULL)
+		return;
+	for (i = 0; i < r->cap; i++)
+		registry_entry_free(r->slot[i]);
+	free(r->slot);
+	free(r);
+}
+
+static size_t
+probe(const struct registry *r, const char *name, size_t len)
+{
+	size_t i = (size_t)hash(name, len) & (r->cap - 1);
+
+	while (r->slot[i] != NULL && (strlen(r->slot[i]->name) != len ||
+	    memcmp(r->slot[i]->name, name, len) != 0))
+		i = (i + 1) & (r->cap - 1);
+	return i;
+}
+
+/* registry_find: the entry named name[0..len), or NULL. */
+struct reg_entry *
+registry_find(const struct registry *r, const char *name, size_t len)
+{
+	if (len == 0 || len > MODEL_NAME_MAX)
+		return NULL;
+	return r->slot[probe(r, name, len)];
+}
+
+static int
+grow(struct registry *r)
+{
+	struct reg_entry **old = r->slot;
+	size_t i, oldcap = r->cap;
+
+	if ((r->slot = calloc(oldcap * 2, sizeof(*r->slot))) == NULL) {
+		r->slot = old;
+		return E_NOMEM;
+	}
+	r->cap = oldcap * 2;
+	for (i = 0; i < oldcap; i++)
+		if (old[i] != NULL)
+			r->slot[probe(r, old[i]->name,
+			    strlen(old[i]->name))] = old[i];
+	free(old);
+	return 0;
+}
+
+/*
+ * registry_adopt: insert e (ownership passes to r on success). E_EXISTS if
+ * the name is taken, E_NOMEM when the table cannot grow (e not taken).
+ */
+int
+registry_adopt(struct registry *r, struct reg_entry *e)
+{
+	size_t len = strlen(e->name), i;
+
+	if ((r->count + 1) * 10 > r->cap * 7 && grow(r) != 0)
+		return E_NOMEM;
+	i = probe(r, e->name, len);
+	if (r->slot[i] != NULL)
+		return E_EXISTS;
+	r->slot[i] = e;
+	r->count++;
+	return 0;
+}
+
+/*
+ * registry_entry_new: build an entry named name from the config section cm
+ * (a [model] or a [template]): compile its terms, create the model, copy
+ * the field names, allocate the history ring. Returns NULL with a message
+ * in errbuf on failure. The caller owns the entry until registry_adopt.
+ */
+struct reg_entry *
+registry_entry_new(const struct registry *r, const struct conf_model *cm,
+    const char *name, char *errbuf, size_t errlen)
+{
+	struct reg_entry *e;
+	struct terms *t = NULL;
+	struct model_opts mo;
+	int p, f;
+
+	if (cm->nfields > PROTO_MAX_VALUES) {
+		err_printf(errbuf, errlen, "more than %d fields",
+		    PROTO_MAX_VALUES);
+		return NULL;
+	}
+	if ((e = calloc(1, sizeof(*e))) == NULL)
+		goto nomem;
+	snprintf(e->name, sizeof(e->name), "%s", name);
+	snprintf(e->section, sizeof(e->section), "%s", cm->name);
+	e->from_template = cm->is_template;
+	e->nfields = cm->nfields;
+	if ((e->fields = calloc((size_t)cm->nfields + 1,
+	    sizeof(*e->fields))) == NULL)
+		goto nomem;
+	for (f = 0; f < cm->nfields; f++)
+		memcpy(e->fields[f], cm->fields[f], sizeof(e->fields[f]));
+	memcpy(e->fields[cm->nfields], cm->target, sizeof(e->fields[0]));
+	if (conf_model_terms(cm, &t, errbuf, errlen) != 0)
+		goto fail;
+	p = terms_p(t);
+	mo = cm->mo;
+	mo.p = p;
+	if ((e->m = model_new(&mo)) == NULL) {
+		err_printf(errbuf, errlen, "invalid model settings");
+		terms_free(t);
+		goto fail;
+	}
+	if (model_set_terms(e->m, t, cm->scale_mode == CONF_SCALE_AUTO) != 0)
+		goto nomem;
+	if (r != NULL && r->conf != NULL) {
+		e->hist_cap = (uint32_t)r->conf->d.history;
+		e->hist_every = r->conf->d.history_every;
+	}
+	if (e->hist_cap > 0 && (e->hist = calloc((size_t)e->hist_cap *
+	    (size_t)(3 + p), sizeof(double))) == NULL)
+		goto nomem;
+	return e;
+nomem:
+	err_printf(errbuf, errlen, "out of memory");
+fail:
+	registry_entry_free(e);
+	return NULL;
+}
+
+/*
+ * registry_get: the entry for name[0..len); when absent, create it from
+ * the config ([model] of that name, else the first matching [template]).
+ * On failure returns -1 with res->reason (unknown_model, model_limit,
+ * internal) and res->detail set.
+ */
+int
+registry_get(struct registry *r, const char *name, size_t len,
+    struct reg_entry **out, struct reg_result *res)
+{
+	const struct conf_model *cm;
+	struct reg_entry *e;
+	char nm[MODEL_NAME_MAX + 1], err[160];
+
+	if ((e = registry_find(r, name, len)) != NULL) {
+		*out = e;
+		return 0;
+	}
+	*out = NULL;
+	memcpy(nm, name, len);
+	nm[len] = '\0';
+	if (r->conf == NULL || (cm = conf_find_model(r->conf, nm)) == NULL) {
+		res->reason = PROTO_R_UNKNOWN_MODEL;
+		err_printf(res->detail, sizeof(res->detail), "no model \"%s\" "
+		    "and no template matching it in the configuration", nm);
+		return -1;
+	}
+	if (r->count >= (size_t)r->conf->d.max_models) {
+		res->reason = PROTO_R_MODEL_LIMIT;
+		err_printf(res->detail, sizeof(res->detail), "model limit "
+		    "(max_models = %d) reached; \"%s\" not created",
+		    r->conf->d.max_models, nm);
+		return -1;
+	}
+	if ((e = registry_entry_new(r, cm, nm, err, sizeof(err))) == NULL ||
+	    registry_adopt(r, e) != 0) {
+		registry_entry_free(e);
+		res->reason = PROTO_R_INTERNAL;
+		err_printf(res->detail, sizeof(res->detail), "cannot create "
+		    "model \"%s\": %s", nm, e == NULL ? err : "out of memory");
+		return -1;
+	}
+	*out = e;
+	return 0;
+}
+
+static void
+fields_list(const struct reg_entry *e, char *buf, size_t len)
+{
+	size_t pos = 0;
+	int f, n;
+
+	buf[0] = '\0';
+	for (f = 0; f < e->nfields; f++) {
+		n = snprintf(buf + pos, len - pos, "%s%s", f ? " " : "",
+		    e->fields[f]);
+		if (n < 0 || (size_t)n >= len - pos)
+			break;
+		pos += (size_t)n;
+	}
+}
+
+/* Raw values of a record into x (nfields + 1, target last). Returns 1
+ * when the line carries a target, 0 for a prediction request, -1 with a
+ * reason when it does not fit the model. */
+static int
+map_values(const struct reg_entry *e, const struct proto_msg *msg, double *x,
+    struct reg_result *res)
+{
+	uint8_t seen[PROTO_MAX_VALUES + 2];
+	char list[120];
+	size_t i;
+	int f, nf = e->nfields, has_target = 0;
+
+	if (!msg->named) {
+		if (msg->nvalues != (size_t)nf) {
+			fields_list(e, list, sizeof(list));
+			res->reason = PROTO_R_WRONG_COUNT;
+			err_printf(res->detail, sizeof(res->detail), "model \"%s\" "
+			    "takes %d features (%s), got %zu", e->name, nf,
+			    list, msg->nvalues);
+			return -1;
+		}
+		for (f = 0; f < nf; f++)
+			x[f] = msg->values[f].v;
+		x[nf] = msg->has_target ? msg->target : 0;
+		return msg->has_target;
+	}
+	memset(seen, 0, sizeof(seen));
+	for (i = 0; i < msg->nvalues; i++) {
+		const struct proto_str *nm = &msg->values[i].name;
+
+		for (f = 0; f <= nf; f++)
+			if (strlen(e->fields[f]) == nm->len &&
+			    memcmp(e->fields[f], nm->ptr, nm->len) == 0)
+				break;
+		if (f > nf || (f == nf && msg->kind == PROTO_PREDICT &&
+		    msg->cmd == PROTO_CMD_PREDICT)) {
+			fields_list(e, list, sizeof(list));
+			res->reason = PROTO_R_UNKNOWN_FIELD;
+			err_printf(res->detail, sizeof(res->detail), "model \"%s\" "
+			    "has no field \"%.*s\" (fields: %s; target: %s)",
+			    e->name, (int)(nm->len > 32 ? 32 : nm->len),
+			    nm->ptr, list, e->fields[nf]);
+			return -1;
+		}
+		seen[f] = 1;
+		x[f] = msg->values[i].v;
+		if (f == nf)
+			has_target = 1;
+	}
+	for (f = 0; f < nf; f++)
+		if (!seen[f]) {
+			res->reason = PROTO_R_MISSING_FIELD;
+			err_printf(res->detail, sizeof(res->detail), "model \"%s\": "
+			    "field \"%s\" is missing", e->name, e->fields[f]);
+			return -1;
+		}
+	if (!has_target)
+		x[nf] = 0;
+	return has_target;
+}
+
+static void
+history_add(struct reg_entry *e, double t)
+{
+	struct model_report rep;
+	double *row;
+	int p = e->m->o.p;
+
+	if (e->hist_cap == 0 || e->hist_every == 0 ||
+	    e->m->n_used % e->hist_every != 0)
+		return;
+	row = e->hist + (size_t)e->hist_next * (size_t)(3 + p);
+	memset(&rep, 0, sizeof(rep));
+	rep.theta = row + 3;
+	model_report_fast(e->m, &rep);
+	row[0] = t;
+	row[1] = (double)e->m->n_used;
+	row[2] = rep.s.r2_pred;
+	e->hist_next = (e->hist_next + 1) % e->hist_cap;
+	if (e->hist_len < e->hist_cap)
+		e->hist_len++;
+}
+
+/*
+ * registry_hist_get: snapshot i of e, oldest first: a pointer to 3 + p
+ * doubles (time, records used, one-step-ahead R^2, coefficients), valid
+ * until the next record; NULL when i >= hist_len.
+ */
+const double *
+registry_hist_get(const struct reg_entry *e, uint32_t i)
+{
+	uint32_t k;
+
+	if (i >= e->hist_len)
+		return NULL;
+	k = (e->hist_next + e->hist_cap - e->hist_len + i) % e->hist_cap;
+	return e->hist + (size_t)k * (size_t)(3 + e->m->o.p);
+}
+
+/*
+ * registry_record: a PROTO_RECORD or PROTO_PREDICT message: find or create
+ * the model, map the values, and either run the record through the model
+ * (time: the record's @TIME, else now) or compute a prediction. Returns 0
+ * with res->kind set, or -1 with res->reason/detail when the line is
+ * rejected; a rejected line changes no model state (a model created by a
+ * template for it stays, empty).
+ */
+int
+registry_record(struct registry *r, const struct proto_msg *msg, double now,
+    struct reg_result *res)
+{
+	struct model_step_out so;
+	struct reg_entry *e;
+	double x[PROTO_MAX_VALUES + 2];
+	int has_target, rc;
+
+	memset(res, 0, sizeof(*res));
+	res->reason = PROTO_NREASONS;
+	res->t = msg->has_time ? msg->time : now;
+	if (registry_get(r, msg->model.ptr, msg->model.len, &e, res) != 0)
+		return -1;
+	res->entry = e;
+	if ((has_target = map_values(e, msg, x, res)) < 0)
+		goto reject;
+	if (!has_target) {
+		rc = model_predict_fields(e->m, x, &res->yhat, &res->se,
+		    &res->lo, &res->hi);
+		if (rc == 0 && rls_rank(e->m->rls) < e->m->o.p)
+			rc = E_STATE;
+		if (rc != 0) {
+			res->reason = rc == E_STATE ? PROTO_R_NOT_READY :
+			    PROTO_R_TERM_NON_FINITE;
+			err_printf(res->detail, sizeof(res->detail), "%s",
+			    rc == E_STATE ? "the model cannot predict yet "
+			    "(not enough records to determine every "
+			    "coefficient)" : "a derived term is not finite or "
+			    "beyond 1e100");
+			goto reject;
+		}
+		res->kind = REG_PREDICTION;
+		return 0;
+	}
+	rc = model_ingest(e->m, x, x[e->nfields], 1, res->t, &so);
+	if (rc == MODEL_PRIMED) {
+		res->kind = REG_PRIMED;
+		return 0;
+	}
+	if (rc != 0) {
+		res->reason = rc == E_NUMERIC ? PROTO_R_TERM_NON_FINITE :
+		    PROTO_R_BAD_TIME;
+		err_printf(res->detail, sizeof(res->detail), "%s",
+		    rc == E_NUMERIC ? "a value or derived term is not finite "
+		    "or beyond 1e100" : "the record time is not usable");
+		goto reject;
+	}
+	res->events = so.events;
+	if (so.used) {
+		res->kind = REG_USED;
+		e->n_updates++;
+		history_add(e, res->t);
+	} else {
+		res->kind = so.gate == ALARM_GATE_OUTLIER ? REG_GATED :
+		    REG_FROZEN;
+	}
+	return 0;
+reject:
+	e->n_rejected++;
+	return -1;
+}
+
+/* Same term list, fields, target and scaling: settings can be swapped in
+ * place without touching the state. */
+static int
+same_shape(const struct reg_entry *e, const struct conf_model *cm)
+{
+	struct terms *t;
+	char err[64];
+	int j, f, same = 1;
+
+	if (cm->nfields != e->nfields ||
+	    strcmp(cm->target, e->fields[e->nfields]) != 0 ||
+	    cm->mo.intercept != e->m->o.intercept)
+		return 0;
+	for (f = 0; f < e->nfields; f++)
+		if (strcmp(cm->fields[f], e->fields[f]) != 0)
+			return 0;
+	if (conf_model_terms(cm, &t, err, sizeof(err)) != 0)
+		return 0;
+	if (terms_p(t) != e->m->o.p)
+		same = 0;
+	for (j = 0; same && j < terms_p(t); j++)
+		if (strcmp(terms_text(t, j), terms_text(e->m->terms, j)) != 0)
+			same = 0;
+	terms_free(t);
+	return same;
+}
+
+/* New settings from cm, applied from the next record on. */
+static void
+apply_settings(struct reg_entry *e, const struct conf_model *cm)
+{
+	struct model *m = e->m;
+	int p = m->o.p;
+	double q = m->o.alarm.drift_q;
+
+	m->o.lambda = cm->mo.lambda;
+	m->o.tau = cm->mo.tau;
+	m->o.delta = cm->mo.delta;
+	m->rls->delta = cm->mo.delta;
+	m->o.sigma_memory = cm->mo.sigma_memory;
+	m->o.drift_alpha = cm->mo.drift_alpha;
+	m->o.level = cm->mo.level;
+	m->o.alarm = cm->mo.alarm;
+	/* The drift threshold belongs to the pin, not the config. */
+	m->o.alarm.drift_q = m->pinned ? q : m->o.alarm.drift_q;
+	if (cm->tol_abs != NULL) {
+		memcpy(m->tol_abs, cm->tol_abs, sizeof(double) * (size_t)p);
+		m->o.tol_abs = m->tol_abs;
+	} else {
+		m->o.tol_abs = NULL;
+	}
+	if (cm->tol_pct != NULL) {
+		memcpy(m->tol_pct, cm->tol_pct, sizeof(double) * (size_t)p);
+		m->o.tol_pct = m->tol_pct;
+	} else {
+		m->o.tol_pct = NULL;
+	}
+}
+
+/*
+ * registry_set_conf: use config c from now on. Every model keeps its state.
+ * A model whose section still has the same shape (fields, target, terms)
+ * takes the new settings from its next record; one whose shape changed
+ * keeps running as it was and is marked stale (.reset rebuilds it); one
+ * whose section is gone is kept and marked orphan. Counts go to the out
+ * parameters (each may be NULL).
+ */
+void
+registry_set_conf(struct registry *r, const struct conf *c, int *nkept,
+    int *nstale, int *norphan)
+{
+	const struct conf_model *cm;
+	int kept = 0, stale = 0, orphan = 0;
+	size_t i;
+
+	r->conf = c;
+	for (i = 0; i < r->cap; i++) {
+		struct reg_entry *e = r->slot[i];
+
+		if (e == NULL)
+			continue;
+		cm = conf_find_model(c, e->name);
+		e->orphan = cm == NULL;
+		e->stale = 0;
+		if (cm == NULL) {
+			orphan++;
+		} else if (!same_shape(e, cm)) {
+			e->stale = 1;
+			stale++;
+		} else {
+			apply_settings(e, cm);
+			snprintf(e->section, sizeof(e->section), "%s", cm->name);
+			e->hist_every = c->d.history_every;
+			kept++;
+		}
+	}
+	if (nkept != NULL)
+		*nkept = kept;
+	if (nstale != NULL)
+		*nstale = stale;
+	if (norphan != NULL)
+		*norphan = orphan;
+}
+
+/*
+ * registry_rebuild: replace e's model with a fresh one built from the
+ * current config section for its name (new shape and settings). The
+ * frozen flag and a reference pinned by the user are kept when the shape
+ * is unchanged. E_NOTFOUND when no section matches any more; other errors
+ * with a message. On error e is unchanged.
+ */
+int
+registry_rebuild(struct registry *r, struct reg_entry *e, char *errbuf,
+    size_t errlen)
+{
+	const struct conf_model *cm;
+	struct reg_entry *n;
+
+	if ((cm = conf_find_model(r->conf, e->name)) == NULL) {
+		err_printf(errbuf, errlen, "no configuration section for \"%s\"",
+		    e->name);
+		return E_NOTFOUND;
+	}
+	if ((n = registry_entry_new(r, cm, e->name, errbuf, errlen)) == NULL)
+		return E_NOMEM;
+	if (!e->stale && e->m->pinned == 1 && n->m->o.p == e->m->o.p) {
+		memcpy(n->m->theta_pin, e->m->theta_pin,
+		    sizeof(double) * (size_t)e->m->o.p);
+		n->m->pinned = 1;
+		n->m->pin_t = e->m->pin_t;
+		n->m->pin_sigma = e->m->pin_sigma;
+		n->m->o.alarm.drift_q = e->m->o.alarm.drift_q;
+	}
+	if (!e->stale)
+		n->m->frozen = e->m->frozen;
+	/* Swap the contents so pointers to e stay valid. */
+	model_free(e->m);
+	free(e->fields);
+	free(e->hist);
+	n->n_rejected = e->n_rejected;
+	*e = *n;
+	free(n);
+	return 0;
+}
+
+/* registry_count: models in the registry. */
+size_t
+registry_count(const struct registry *r)
+{
+	return r->count;
+}
+
+static int
+by_name(const void *a, const void *b)
+{
+	const struct reg_entry *const *x = a, *const *y = b;
+
+	return strcmp((*x)->name, (*y)->name);
+}
+
+/*
+ * registry_list: store up to max entries, sorted by name, in out; returns
+ * how many were stored.
+ */
+size_t
+registry_list(const struct registry *r, struct reg_entry **out, size_t max)
+{
+	size_t i, k = 0;
+
+	for (i = 0; i < r->cap && k < max; i++)
+		if (r->slot[i] != NULL)
+			out[k++] = r->slot[i];
+	qsort(out, k, sizeof(*out), by_name);
+	return k;
+}
+
+/* registry_coef_names: the coefficient names of e into names[0..p). */
+void
+registry_coef_names(const struct reg_entry *e, const char **names)
+{
+	int j;
+
+	for (j = 0; j < e->m->o.p; j++)
+		names[j] = terms_text(e->m->terms, j);
+}
