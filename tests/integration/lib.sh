@@ -1,0 +1,91 @@
+# SPDX-License-Identifier: ISC
+# Shared helpers for the integration tests: a private temp dir, starting and
+# stopping coefd on a socket inside it, a plain-socket client, assertions.
+# Sourced by tests/integration/t_*.sh with the build directory as $1.
+
+BUILD=${1:-build}
+COEFD=$BUILD/coefd
+COEFCTL=$BUILD/coefctl
+PY=/usr/bin/python3
+[ -x "$PY" ] || PY=python3
+TMP=$(mktemp -d "${TMPDIR:-/tmp}/coefd-it.XXXXXX")
+SOCK=$TMP/coefd.sock
+DPID=
+FAILS=0
+CHECKS=0
+export OPENBLAS_NUM_THREADS=1
+
+cleanup() {
+	if [ -n "$DPID" ] && kill -0 "$DPID" 2>/dev/null; then
+		kill -KILL "$DPID" 2>/dev/null
+	fi
+	rm -rf "$TMP"
+}
+trap cleanup EXIT INT TERM
+
+# start_daemon CONF: start coefd in the background, wait for its socket.
+start_daemon() {
+	"$COEFD" -c "$1" -s "$SOCK" >"$TMP/coefd.log" 2>&1 &
+	DPID=$!
+	i=0
+	while [ ! -S "$SOCK" ] && [ $i -lt 100 ]; do
+		sleep 0.05
+		i=$((i + 1))
+	done
+	[ -S "$SOCK" ] || { echo "coefd did not start:"; cat "$TMP/coefd.log"; exit 1; }
+}
+
+# stop_daemon: SIGTERM and wait; returns coefd's exit status.
+stop_daemon() {
+	kill -TERM "$DPID"
+	wait "$DPID"
+	rc=$?
+	DPID=
+	return $rc
+}
+
+# send: stdin lines to the socket, replies to stdout (half-close at EOF).
+send() {
+	"$PY" -c '
+import socket, sys
+s = socket.socket(socket.AF_UNIX)
+s.connect(sys.argv[1])
+s.sendall(sys.stdin.buffer.read())
+s.shutdown(socket.SHUT_WR)
+out = b""
+while True:
+    d = s.recv(1 << 16)
+    if not d:
+        break
+    out += d
+sys.stdout.buffer.write(out)
+' "$SOCK"
+}
+
+# jget JSON-LINE EXPR: evaluate a Python expression on the parsed line (d).
+jget() {
+	"$PY" -c 'import json, sys; d = json.loads(sys.argv[1]); print(eval(sys.argv[2]))' "$1" "$2"
+}
+
+ok() {
+	CHECKS=$((CHECKS + 1))
+	echo "  ok   $1"
+}
+
+fail() {
+	CHECKS=$((CHECKS + 1))
+	FAILS=$((FAILS + 1))
+	echo "  FAIL $1"
+}
+
+# check DESCRIPTION COMMAND...: run the command, ok if it succeeds.
+check() {
+	d=$1
+	shift
+	if "$@"; then ok "$d"; else fail "$d"; fi
+}
+
+finish() {
+	echo "  $((CHECKS - FAILS)) passed, $FAILS failed"
+	[ "$FAILS" -eq 0 ]
+}
