@@ -37,12 +37,12 @@ FINAL_LDFLAGS = $(HARDEN_LD) $(LDFLAGS) $(SAN)
 
 # The pure engine: no I/O, no libuv, no globals. Built into libcore.a, which
 # the daemon, the client and the unit tests link. Add new pure modules here.
-CORE_SRC = daemon/err.c
+CORE_SRC = daemon/err.c daemon/dist.c
 # Daemon-only modules (may use libuv and I/O).
 DAEMON_SRC = daemon/main.c
 CLIENT_SRC = client/main.c
 # Unit tests: one check_<module>.c per pure module plus the runner.
-TEST_SRC = tests/check_main.c tests/check_err.c
+TEST_SRC = tests/check_main.c tests/check_err.c tests/check_dist.c
 
 CORE_OBJ   = $(CORE_SRC:%.c=$(BUILD)/%.o)
 DAEMON_OBJ = $(DAEMON_SRC:%.c=$(BUILD)/%.o)
