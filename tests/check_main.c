@@ -17,6 +17,7 @@ main(void)
 	int nfail, nrun;
 
 	sr = srunner_create(err_suite());
+	srunner_add_suite(sr, dist_suite());
 	srunner_run_all(sr, CK_NORMAL);
 	nfail = srunner_ntests_failed(sr);
 	nrun = srunner_ntests_run(sr);

@@ -5,5 +5,6 @@
 #include <check.h>
 
 Suite *err_suite(void);
+Suite *dist_suite(void);
 
 #endif
