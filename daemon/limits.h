@@ -21,5 +21,7 @@
 
 /* JSON writer (daemon/json.h). */
 #define JSON_MAX_DEPTH		32	/* nesting of objects and arrays */
+#define DIST_CUSUM_HMAX		40.0	/* largest CUSUM decision interval h (sigma) */
+#define DIST_CUSUM_ARL0_MAX	1e10	/* largest target in-control ARL for h search */
 
 #endif

@@ -14,5 +14,6 @@ Suite *proto_suite(void);
 Suite *model_suite(void);
 Suite *nist_suite(void);
 Suite *recursive_suite(void);
+Suite *dist_suite(void);
 
 #endif
