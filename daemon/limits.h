@@ -11,4 +11,15 @@
 #define FIELD_NAME_MAX		32	/* bytes in a field (feature) name */
 #define TERMS_MAX		(RLS_MAX_P - 1)	/* terms, intercept excluded */
 
+/* Protocol (daemon/proto.h, daemon/PROTOCOL.md). */
+#define PROTO_MAX_VALUES	256	/* VALUES tokens on one line, target included */
+#define PROTO_MAX_ARGS		4	/* raw argument tokens kept for a command */
+#define PROTO_DETAIL_MAX	160	/* bytes of error detail, NUL included */
+#define PROTO_LINE_DEFAULT	16384	/* default line cap, LF excluded */
+#define PROTO_LINE_MAX		1048576	/* largest line cap proto_reader_new accepts */
+#define PROTO_COUNT_MAX		1000000000u /* largest N in `.history` / `every=` */
+
+/* JSON writer (daemon/json.h). */
+#define JSON_MAX_DEPTH		32	/* nesting of objects and arrays */
+
 #endif

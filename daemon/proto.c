@@ -1,0 +1,1424 @@
+/* SPDX-License-Identifier: ISC */
+/*
+ * proto: incremental reader and parser for the coefd line protocol v1
+ * (grammar in daemon/PROTOCOL.md) plus the JSON error reply. Pure: no I/O,
+ * no globals, no clock, no logging; the only allocation is the reader's
+ * line buffer in proto_reader_new. It checks syntax only: whether a model
+ * exists, or which field is the target, is for the registry to decide.
+ */
+#include <assert.h>
+#include <float.h>
+#include <math.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "err.h"
+#include "json.h"
+#include "proto.h"
+
+/*
+ * The reader. buf holds the start of a line that has not been completed
+ * yet (len bytes); lines that arrive whole are parsed in place.
+ */
+struct proto_reader {
+	char		*buf;		/* cap bytes, allocated once */
+	size_t		 cap;		/* maxline: longest line, LF excluded */
+	size_t		 len;		/* bytes of the pending partial line */
+	uint64_t	 line;		/* number of the last line started */
+	int		 skipping;	/* dropping the rest of an over-long line */
+};
+
+/* ---------------------------------------------------------------------
+ * Tables.
+ */
+
+/*
+ * Keep in the order of enum proto_reason; tests/check_proto.c checks that
+ * every value has its own string. Update it whenever a reason is added.
+ */
+static const char *const reason_str[PROTO_NREASONS] = {
+	[PROTO_R_LINE_TOO_LONG] = "line_too_long",
+	[PROTO_R_NUL_BYTE] = "nul_byte",
+	[PROTO_R_BAD_UTF8] = "bad_utf8",
+	[PROTO_R_BAD_MODEL_NAME] = "bad_model_name",
+	[PROTO_R_BAD_TIME] = "bad_time",
+	[PROTO_R_NOT_A_NUMBER] = "not_a_number",
+	[PROTO_R_NON_FINITE] = "non_finite",
+	[PROTO_R_NO_VALUES] = "no_values",
+	[PROTO_R_TOO_MANY_VALUES] = "too_many_values",
+	[PROTO_R_MIXED_FORMS] = "mixed_forms",
+	[PROTO_R_BAD_FIELD_NAME] = "bad_field_name",
+	[PROTO_R_DUPLICATE_FIELD] = "duplicate_field",
+	[PROTO_R_UNKNOWN_COMMAND] = "unknown_command",
+	[PROTO_R_BAD_ARGUMENTS] = "bad_arguments",
+	[PROTO_R_UNKNOWN_MODEL] = "unknown_model",
+	[PROTO_R_WRONG_COUNT] = "wrong_count",
+	[PROTO_R_UNKNOWN_FIELD] = "unknown_field",
+	[PROTO_R_MISSING_FIELD] = "missing_field",
+	[PROTO_R_TERM_NON_FINITE] = "term_non_finite",
+	[PROTO_R_MODEL_LIMIT] = "model_limit",
+	[PROTO_R_CONNECTION_LIMIT] = "connection_limit",
+	[PROTO_R_DENIED] = "denied",
+	[PROTO_R_AUTH_REQUIRED] = "auth_required",
+	[PROTO_R_FROZEN] = "frozen",
+	[PROTO_R_BUSY] = "busy",
+	[PROTO_R_INTERNAL] = "internal",
+};
+
+/*
+ * proto_reason_str: the stable snake_case wire name of r, or "unknown" for
+ * a value outside 0..PROTO_NREASONS-1. Never NULL.
+ */
+const char *
+proto_reason_str(enum proto_reason r)
+{
+	if ((unsigned)r >= PROTO_NREASONS || reason_str[r] == NULL)
+		return "unknown";
+	return reason_str[r];
+}
+
+#define ANY	(-1)
+
+/*
+ * The command table, indexed by enum proto_cmd. One row per command; the
+ * arity check and the per-argument checks in parse_command are driven by
+ * it. Adding a command: add the enum value, a row here, a case in
+ * parse_command if it has arguments beyond NAME, and a PROTOCOL.md entry.
+ */
+static const struct proto_cmd_info cmd_table[PROTO_NCMDS] = {
+	[PROTO_CMD_SYNC] = { ".sync", PROTO_CMD_SYNC, 0, 0, 0 },
+	[PROTO_CMD_LIST] = { ".list", PROTO_CMD_LIST, 0, 0, 0 },
+	[PROTO_CMD_GET] = { ".get", PROTO_CMD_GET, 1, 1, PROTO_CMD_NAME },
+	[PROTO_CMD_PREDICT] = { ".predict", PROTO_CMD_PREDICT, 1, ANY,
+	    PROTO_CMD_NAME | PROTO_CMD_VALUES },
+	[PROTO_CMD_PIN] = { ".pin", PROTO_CMD_PIN, 1, 1,
+	    PROTO_CMD_NAME | PROTO_CMD_ADMIN },
+	[PROTO_CMD_FREEZE] = { ".freeze", PROTO_CMD_FREEZE, 1, 1,
+	    PROTO_CMD_NAME | PROTO_CMD_ADMIN },
+	[PROTO_CMD_THAW] = { ".thaw", PROTO_CMD_THAW, 1, 1,
+	    PROTO_CMD_NAME | PROTO_CMD_ADMIN },
+	[PROTO_CMD_RESET] = { ".reset", PROTO_CMD_RESET, 1, 1,
+	    PROTO_CMD_NAME | PROTO_CMD_ADMIN },
+	[PROTO_CMD_HISTORY] = { ".history", PROTO_CMD_HISTORY, 1, 2,
+	    PROTO_CMD_NAME },
+	[PROTO_CMD_STATS] = { ".stats", PROTO_CMD_STATS, 0, 0, 0 },
+	[PROTO_CMD_WATCH] = { ".watch", PROTO_CMD_WATCH, 0, 2, 0 },
+	[PROTO_CMD_SAVE] = { ".save", PROTO_CMD_SAVE, 0, 0, PROTO_CMD_ADMIN },
+	[PROTO_CMD_RELOAD] = { ".reload", PROTO_CMD_RELOAD, 0, 0,
+	    PROTO_CMD_ADMIN },
+	[PROTO_CMD_AUTH] = { ".auth", PROTO_CMD_AUTH, 1, 1, PROTO_CMD_SECRET },
+	[PROTO_CMD_VERSION] = { ".version", PROTO_CMD_VERSION, 0, 0, 0 },
+	[PROTO_CMD_BYE] = { ".bye", PROTO_CMD_BYE, 0, 0, 0 },
+};
+
+/*
+ * proto_cmd_info: the table row of cmd, or NULL for PROTO_CMD_NONE and
+ * values out of range. The row is static and read-only.
+ */
+const struct proto_cmd_info *
+proto_cmd_info(enum proto_cmd cmd)
+{
+	if ((unsigned)cmd >= PROTO_NCMDS || cmd_table[cmd].name == NULL)
+		return NULL;
+	return &cmd_table[cmd];
+}
+
+/*
+ * proto_cmd_find: the row whose name (dot included, case-sensitive) is
+ * word[0..len), or NULL.
+ */
+const struct proto_cmd_info *
+proto_cmd_find(const char *word, size_t len)
+{
+	int i;
+
+	for (i = 1; i < PROTO_NCMDS; i++)
+		if (strlen(cmd_table[i].name) == len &&
+		    memcmp(cmd_table[i].name, word, len) == 0)
+			return &cmd_table[i];
+	return NULL;
+}
+
+/* Character classes, one bit each, for the names in the grammar. */
+#define C_MODEL		0x01	/* [A-Za-z0-9_.-] */
+#define C_ALNUM		0x02	/* [A-Za-z0-9] */
+#define C_FIELD0	0x04	/* [A-Za-z_] */
+#define C_FIELD		0x08	/* [A-Za-z0-9_] */
+#define C_DIGIT		0x10	/* [0-9] */
+#define C_BLANK		0x20	/* space, tab */
+
+#define R_DIG	(C_MODEL | C_ALNUM | C_FIELD | C_DIGIT)
+#define R_LET	(C_MODEL | C_ALNUM | C_FIELD0 | C_FIELD)
+
+static const unsigned char cclass[256] = {
+	['\t'] = C_BLANK, [' '] = C_BLANK,
+	['-'] = C_MODEL, ['.'] = C_MODEL,
+	['_'] = C_MODEL | C_FIELD0 | C_FIELD,
+	['0'] = R_DIG, ['1'] = R_DIG, ['2'] = R_DIG, ['3'] = R_DIG,
+	['4'] = R_DIG, ['5'] = R_DIG, ['6'] = R_DIG, ['7'] = R_DIG,
+	['8'] = R_DIG, ['9'] = R_DIG,
+	['A'] = R_LET, ['B'] = R_LET, ['C'] = R_LET, ['D'] = R_LET,
+	['E'] = R_LET, ['F'] = R_LET, ['G'] = R_LET, ['H'] = R_LET,
+	['I'] = R_LET, ['J'] = R_LET, ['K'] = R_LET, ['L'] = R_LET,
+	['M'] = R_LET, ['N'] = R_LET, ['O'] = R_LET, ['P'] = R_LET,
+	['Q'] = R_LET, ['R'] = R_LET, ['S'] = R_LET, ['T'] = R_LET,
+	['U'] = R_LET, ['V'] = R_LET, ['W'] = R_LET, ['X'] = R_LET,
+	['Y'] = R_LET, ['Z'] = R_LET,
+	['a'] = R_LET, ['b'] = R_LET, ['c'] = R_LET, ['d'] = R_LET,
+	['e'] = R_LET, ['f'] = R_LET, ['g'] = R_LET, ['h'] = R_LET,
+	['i'] = R_LET, ['j'] = R_LET, ['k'] = R_LET, ['l'] = R_LET,
+	['m'] = R_LET, ['n'] = R_LET, ['o'] = R_LET, ['p'] = R_LET,
+	['q'] = R_LET, ['r'] = R_LET, ['s'] = R_LET, ['t'] = R_LET,
+	['u'] = R_LET, ['v'] = R_LET, ['w'] = R_LET, ['x'] = R_LET,
+	['y'] = R_LET, ['z'] = R_LET,
+};
+
+#define IS(c, cl)	(cclass[(unsigned char)(c)] & (cl))
+
+/* ---------------------------------------------------------------------
+ * Names.
+ */
+
+/*
+ * proto_check_model_name: 0 if s[0..len) is a valid model name (1 to
+ * MODEL_NAME_MAX bytes of [A-Za-z0-9_.-], the first alphanumeric, which
+ * makes it safe as a file name), else E_ARG.
+ */
+int
+proto_check_model_name(const char *s, size_t len)
+{
+	size_t i;
+
+	if (len == 0 || len > MODEL_NAME_MAX || !IS(s[0], C_ALNUM))
+		return E_ARG;
+	for (i = 1; i < len; i++)
+		if (!IS(s[i], C_MODEL))
+			return E_ARG;
+	return 0;
+}
+
+/*
+ * proto_check_field_name: 0 if s[0..len) is a valid field name (1 to
+ * FIELD_NAME_MAX bytes, [A-Za-z_][A-Za-z0-9_]*), else E_ARG.
+ */
+int
+proto_check_field_name(const char *s, size_t len)
+{
+	size_t i;
+
+	if (len == 0 || len > FIELD_NAME_MAX || !IS(s[0], C_FIELD0))
+		return E_ARG;
+	for (i = 1; i < len; i++)
+		if (!IS(s[i], C_FIELD))
+			return E_ARG;
+	return 0;
+}
+
+/* ---------------------------------------------------------------------
+ * Numbers.
+ *
+ * Grammar: [+-]?(D+(\.D*)?|\.D+)([eE][+-]?D+)?  and nothing else.
+ *
+ * Fast path (W. D. Clinger, "How to read floating point numbers
+ * accurately", PLDI 1990): if the digits form an integer m <= 2^53 and the
+ * value is m * 10^e with |e| <= 22, then m and 10^e are both exact doubles
+ * and one IEEE multiply or divide rounds the exact value correctly, which
+ * is what strtod returns. The extension for 22 < e <= 22+15 moves part of
+ * the power into m when m * 10^(e-22) is still an exact integer <= 2^53.
+ * This needs every double operation rounded once to double, i.e.
+ * FLT_EVAL_METHOD == 0 (x86-64 SSE2, aarch64); otherwise we always use
+ * strtod.
+ *
+ * Everything else goes to glibc strtod, which rounds correctly for any
+ * length, on a NUL-terminated stack copy: the token itself when short,
+ * else an equivalent normalised form (see slow_number).
+ */
+
+#define TWO53		9007199254740992ULL
+#define FAST_DIGITS	19	/* 10^19 - 1 < 2^64 */
+#define SLOW_COPY	128	/* tokens shorter than this are copied as is */
+/*
+ * Significant digits kept in the normalised form. A double, or a point
+ * halfway between two adjacent doubles, has at most 767 significant
+ * decimal digits (2^-1075 = 5^1075 / 10^1075 and 5^1075 has 752 digits;
+ * the widest normal halfway point needs 767), so truncating beyond 800
+ * digits and appending a sticky '1' when a nonzero digit was cut keeps the
+ * value strictly between the same two such points: strtod rounds it the
+ * same way.
+ */
+#define SLOW_DIGITS	800
+/*
+ * Exponents saturate at EXP_SAT while they are read: far beyond any
+ * token length, so e10 (at most the token length in size) + exponent is
+ * still exact enough to decide 0 or inf. The normalised form then prints
+ * at most +-EXP_CAP, where every 801-digit mantissa is already 0 or inf.
+ */
+#define EXP_SAT		1000000000000000LL
+#define EXP_CAP		100000
+
+static const double pow10_exact[23] = {
+	1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10, 1e11,
+	1e12, 1e13, 1e14, 1e15, 1e16, 1e17, 1e18, 1e19, 1e20, 1e21, 1e22
+};
+
+static const uint64_t pow10_u64[16] = {
+	1ULL, 10ULL, 100ULL, 1000ULL, 10000ULL, 100000ULL, 1000000ULL,
+	10000000ULL, 100000000ULL, 1000000000ULL, 10000000000ULL,
+	100000000000ULL, 1000000000000ULL, 10000000000000ULL,
+	100000000000000ULL, 1000000000000000ULL
+};
+
+/* Case-insensitive: is s[0..len) exactly the lower-case word w? */
+static int
+word_ieq(const char *s, size_t len, const char *w)
+{
+	size_t i;
+
+	for (i = 0; i < len && w[i] != '\0'; i++)
+		if ((s[i] | 0x20) != w[i])
+			return 0;
+	return i == len && w[i] == '\0';
+}
+
+/*
+ * strtod on a bounded stack copy. s[0..len) already matched the grammar;
+ * neg is its sign, exp its exponent (saturated at +-EXP_CAP).
+ */
+static double
+slow_number(const char *s, size_t len, int neg, long long exp)
+{
+	char tmp[SLOW_DIGITS + 32], *q;
+	const char *p = s, *end = s + len;
+	long long e10 = 0;
+	size_t nd = 0;
+	int nonzero = 0, sticky = 0, frac = 0;
+	char ebuf[12];
+	int ne = 0;
+
+	if (len < SLOW_COPY) {
+		memcpy(tmp, s, len);
+		tmp[len] = '\0';
+		return strtod(tmp, NULL);
+	}
+	/* Rewrite as [-]0.DDDD[1]e<E>: value = 0.DDDD * 10^E. */
+	q = tmp;
+	if (neg)
+		*q++ = '-';
+	*q++ = '0';
+	*q++ = '.';
+	if (p < end && (*p == '+' || *p == '-'))
+		p++;
+	for (; p < end && (IS(*p, C_DIGIT) || *p == '.'); p++) {
+		if (*p == '.') {
+			frac = 1;
+			continue;
+		}
+		if (!nonzero && *p == '0') {
+			if (frac)
+				e10--;
+			continue;
+		}
+		nonzero = 1;
+		if (!frac)
+			e10++;
+		if (nd < SLOW_DIGITS) {
+			*q++ = *p;
+			nd++;
+		} else if (*p != '0')
+			sticky = 1;
+	}
+	if (!nonzero)
+		return neg ? -0.0 : 0.0;
+	if (sticky)
+		*q++ = '1';
+	e10 += exp;
+	if (e10 > EXP_CAP)
+		e10 = EXP_CAP;
+	if (e10 < -EXP_CAP)
+		e10 = -EXP_CAP;
+	*q++ = 'e';
+	if (e10 < 0) {
+		*q++ = '-';
+		e10 = -e10;
+	}
+	do {
+		ebuf[ne++] = (char)('0' + e10 % 10);
+		e10 /= 10;
+	} while (e10 != 0);
+	while (ne > 0)
+		*q++ = ebuf[--ne];
+	*q = '\0';
+	return strtod(tmp, NULL);
+}
+
+/*
+ * proto_parse_number: read the decimal number s[0..len) (grammar above).
+ * On success stores the value, bit-identical to glibc strtod in the "C"
+ * locale, in *out and returns 0; underflow to a subnormal or to +-0 is
+ * accepted, "-0" gives -0.0. Returns E_NUMERIC for "nan", "inf" and
+ * "infinity" (any case, optional sign) and for values that overflow, E_ARG
+ * for anything else not matching the grammar. *out is untouched on error.
+ */
+int
+proto_parse_number(const char *s, size_t len, double *out)
+{
+	const char *p = s, *end = s + len, *q;
+	uint64_t m = 0;
+	long long e10 = 0, exp = 0;
+	int neg = 0, ndig = 0, sig = 0, many = 0, eneg = 0;
+	double d;
+
+	if (p < end && (*p == '+' || *p == '-')) {
+		neg = *p == '-';
+		p++;
+	}
+	for (; p < end && IS(*p, C_DIGIT); p++, ndig++) {
+		if (sig < FAST_DIGITS) {
+			m = m * 10 + (uint64_t)(*p - '0');
+			sig += m != 0;
+		} else
+			many = 1;
+	}
+	if (p < end && *p == '.') {
+		for (p++; p < end && IS(*p, C_DIGIT); p++, ndig++) {
+			if (sig < FAST_DIGITS) {
+				m = m * 10 + (uint64_t)(*p - '0');
+				sig += m != 0;
+				e10--;
+			} else
+				many = 1;
+		}
+	}
+	if (ndig == 0)
+		goto bad;
+	if (p < end && (*p == 'e' || *p == 'E')) {
+		p++;
+		if (p < end && (*p == '+' || *p == '-')) {
+			eneg = *p == '-';
+			p++;
+		}
+		for (q = p; p < end && IS(*p, C_DIGIT); p++)
+			if (exp < EXP_SAT)
+				exp = exp * 10 + (*p - '0');
+		if (p == q)
+			goto bad;
+		if (eneg)
+			exp = -exp;
+	}
+	if (p != end)
+		goto bad;
+
+#if FLT_EVAL_METHOD == 0
+	if (!many) {
+		long long e = e10 + exp;
+
+		if (m == 0) {
+			*out = neg ? -0.0 : 0.0;
+			return 0;
+		}
+		if (m <= TWO53 && e >= -22 && e <= 22) {
+			d = (double)m;
+			d = e < 0 ? d / pow10_exact[-e] : d * pow10_exact[e];
+			*out = neg ? -d : d;
+			return 0;
+		}
+		if (m <= TWO53 && e > 22 && e <= 22 + 15 &&
+		    m <= TWO53 / pow10_u64[e - 22]) {
+			d = (double)(m * pow10_u64[e - 22]) * 1e22;
+			*out = neg ? -d : d;
+			return 0;
+		}
+	}
+#endif
+	d = slow_number(s, len, neg, exp);
+	if (!isfinite(d))
+		return E_NUMERIC;
+	*out = d;
+	return 0;
+bad:
+	p = s;
+	if (p < end && (*p == '+' || *p == '-'))
+		p++;
+	if (word_ieq(p, (size_t)(end - p), "nan") ||
+	    word_ieq(p, (size_t)(end - p), "inf") ||
+	    word_ieq(p, (size_t)(end - p), "infinity"))
+		return E_NUMERIC;
+	return E_ARG;
+}
+
+/* ---------------------------------------------------------------------
+ * Times.
+ */
+
+/*
+ * Days from 1970-01-01 to the proleptic Gregorian date y-m-d. The
+ * era/day-of-era method of H. Hinnant, "chrono-Compatible Low-Level Date
+ * Algorithms" (days_from_civil): years are counted from March so the leap
+ * day is the last day of the shifted year.
+ */
+static long
+days_from_civil(long y, unsigned m, unsigned d)
+{
+	long era;
+	unsigned yoe, doy, doe;
+
+	y -= m <= 2;
+	era = (y >= 0 ? y : y - 399) / 400;
+	yoe = (unsigned)(y - era * 400);
+	doy = (153 * (m > 2 ? m - 3 : m + 9) + 2) / 5 + d - 1;
+	doe = yoe * 365 + yoe / 4 - yoe / 100 + doy;
+	return era * 146097 + (long)doe - 719468;
+}
+
+static int
+days_in_month(long y, unsigned m)
+{
+	static const unsigned char mdays[12] = {
+		31, 28, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31
+	};
+
+	if (m == 2 && (y % 4 == 0 && (y % 100 != 0 || y % 400 == 0)))
+		return 29;
+	return mdays[m - 1];
+}
+
+/* n decimal digits at s as an integer, or -1 if any is not a digit. */
+static long
+digits(const char *s, int n)
+{
+	long v = 0;
+	int i;
+
+	for (i = 0; i < n; i++) {
+		if (!IS(s[i], C_DIGIT))
+			return -1;
+		v = v * 10 + (s[i] - '0');
+	}
+	return v;
+}
+
+#define FRAC_MAX	60	/* fraction digits accepted in RFC 3339 */
+
+/*
+ * Seconds (integer, may be negative) plus the fraction 0.f[0..nf) as the
+ * correctly rounded double: the exact decimal is written out and read
+ * with proto_parse_number, so 1.1 becomes the double nearest to 1.1, not
+ * 1 + (double)0.1.
+ */
+static int
+exact_seconds(long long secs, const char *f, size_t nf, double *out)
+{
+	char tmp[32 + FRAC_MAX], dig[FRAC_MAX];
+	unsigned long long u;
+	size_t i, n = 0, k;
+	int allzero = 1;
+
+	for (i = 0; i < nf; i++)
+		allzero &= f[i] == '0';
+	if (secs < 0 && !allzero) {
+		/* -S + 0.f = -((S - 1) + (1 - 0.f)); 1 - 0.f = 0.g below. */
+		secs = -secs - 1;
+		memcpy(dig, f, nf);
+		/*
+		 * g = 10^nf - f, the ten's complement: trailing zeros stay,
+		 * the last nonzero digit d becomes 10 - d, every digit left
+		 * of it 9 - d.
+		 */
+		k = nf;
+		while (k > 0 && dig[k - 1] == '0')
+			k--;
+		if (k > 0) {	/* always: some digit is nonzero */
+			dig[k - 1] = (char)('0' + 10 - (dig[k - 1] - '0'));
+			while (--k > 0)
+				dig[k - 1] = (char)('0' + 9 -
+				    (dig[k - 1] - '0'));
+		}
+		tmp[n++] = '-';
+		f = dig;
+	} else if (secs < 0) {
+		tmp[n++] = '-';
+		secs = -secs;
+	}
+	u = (unsigned long long)secs;
+	{
+		char rev[24];
+		int r = 0;
+
+		do {
+			rev[r++] = (char)('0' + u % 10);
+			u /= 10;
+		} while (u != 0);
+		while (r > 0)
+			tmp[n++] = rev[--r];
+	}
+	if (nf > 0) {
+		tmp[n++] = '.';
+		memcpy(tmp + n, f, nf);
+		n += nf;
+	}
+	return proto_parse_number(tmp, n, out);
+}
+
+/*
+ * proto_parse_time: read a TIME token without its '@': either epoch
+ * seconds as D+ or D+.D+ (no sign, no exponent), or RFC 3339 date-time
+ * YYYY-MM-DDTHH:MM:SS[.F+](Z|+HH:MM|-HH:MM) with 'T' and 'Z' in either
+ * case, years 0000-9999, real calendar days (leap years per the Gregorian
+ * rule), seconds 00-59 (no leap second 60: POSIX time has none) and 1 to
+ * FRAC_MAX fraction digits. Stores seconds since 1970-01-01T00:00:00Z,
+ * correctly rounded, in *out and returns 0; E_ARG otherwise (*out
+ * untouched).
+ */
+int
+proto_parse_time(const char *s, size_t len, double *out)
+{
+	long y, mo, d, h, mi, sec, oh, om;
+	long long secs;
+	size_t i, nf = 0;
+	const char *f = NULL;
+	int sign;
+
+	if (len >= 5 && s[4] == '-') {
+		if (len < 20 || s[7] != '-' || (s[10] != 'T' && s[10] != 't') ||
+		    s[13] != ':' || s[16] != ':')
+			return E_ARG;
+		y = digits(s, 4);
+		mo = digits(s + 5, 2);
+		d = digits(s + 8, 2);
+		h = digits(s + 11, 2);
+		mi = digits(s + 14, 2);
+		sec = digits(s + 17, 2);
+		if (y < 0 || mo < 1 || mo > 12 || d < 1 ||
+		    d > days_in_month(y, (unsigned)mo) || h < 0 || h > 23 ||
+		    mi < 0 || mi > 59 || sec < 0 || sec > 59)
+			return E_ARG;
+		i = 19;
+		if (s[i] == '.') {
+			f = s + ++i;
+			while (i < len && IS(s[i], C_DIGIT))
+				i++;
+			nf = (size_t)(s + i - f);
+			if (nf == 0 || nf > FRAC_MAX)
+				return E_ARG;
+		}
+		if (i == len - 1 && (s[i] == 'Z' || s[i] == 'z')) {
+			sign = 0;
+			oh = om = 0;
+		} else if (i == len - 6 && (s[i] == '+' || s[i] == '-') &&
+		    s[i + 3] == ':') {
+			sign = s[i] == '-' ? -1 : 1;
+			oh = digits(s + i + 1, 2);
+			om = digits(s + i + 4, 2);
+			if (oh < 0 || oh > 23 || om < 0 || om > 59)
+				return E_ARG;
+		} else
+			return E_ARG;
+		secs = (long long)days_from_civil(y, (unsigned)mo,
+		    (unsigned)d) * 86400 + h * 3600 + mi * 60 + sec;
+		/* Local time = UTC + offset, so UTC = local - offset. */
+		secs -= (long long)sign * (oh * 3600 + om * 60);
+		return exact_seconds(secs, f, nf, out);
+	}
+	/* Epoch seconds. */
+	for (i = 0; i < len && IS(s[i], C_DIGIT); i++)
+		;
+	if (i == 0)
+		return E_ARG;
+	if (i < len) {
+		if (s[i] != '.' || i + 1 == len)
+			return E_ARG;
+		for (i++; i < len && IS(s[i], C_DIGIT); i++)
+			;
+		if (i < len)
+			return E_ARG;
+	}
+	return proto_parse_number(s, len, out) == 0 ? 0 : E_ARG;
+}
+
+/* ---------------------------------------------------------------------
+ * Error detail text. Writes into msg->detail, truncating at its size.
+ */
+
+#define TOKEN_SHOW	48	/* bytes of a token quoted in detail text */
+
+static void
+d_put(struct proto_msg *msg, size_t *n, const char *s, size_t len)
+{
+	size_t room = sizeof(msg->detail) - 1 - *n;
+
+	if (len > room) {
+		len = room;
+		/* Do not end inside a UTF-8 character. */
+		while (len > 0 && ((unsigned char)s[len] & 0xc0) == 0x80)
+			len--;
+	}
+	memcpy(msg->detail + *n, s, len);
+	*n += len;
+	msg->detail[*n] = '\0';
+}
+
+static void
+d_str(struct proto_msg *msg, size_t *n, const char *s)
+{
+	d_put(msg, n, s, strlen(s));
+}
+
+/* The token in double quotes, shortened with "..." when long. */
+static void
+d_tok(struct proto_msg *msg, size_t *n, const char *s, size_t len)
+{
+	size_t k = len;
+
+	d_put(msg, n, "\"", 1);
+	if (k > TOKEN_SHOW) {
+		k = TOKEN_SHOW;
+		while (k > 0 && ((unsigned char)s[k] & 0xc0) == 0x80)
+			k--;
+	}
+	d_put(msg, n, s, k);
+	if (k < len)
+		d_put(msg, n, "...", 3);
+	d_put(msg, n, "\"", 1);
+}
+
+static void
+d_uint(struct proto_msg *msg, size_t *n, uint64_t v)
+{
+	char tmp[24];
+	size_t i = sizeof(tmp);
+
+	do {
+		tmp[--i] = (char)('0' + v % 10);
+		v /= 10;
+	} while (v != 0);
+	d_put(msg, n, tmp + i, sizeof(tmp) - i);
+}
+
+/*
+ * Fill the error fields: reason, and detail as a sequence of pieces:
+ * pre, then the quoted token (if tok != NULL), then post. Returns
+ * PROTO_ERROR for the caller to pass on.
+ */
+static int
+reject(struct proto_msg *msg, enum proto_reason r, const char *pre,
+    const char *tok, size_t toklen, const char *post)
+{
+	size_t n = 0;
+
+	msg->kind = PROTO_EMPTY;
+	msg->reason = r;
+	msg->detail[0] = '\0';
+	if (pre != NULL)
+		d_str(msg, &n, pre);
+	if (tok != NULL)
+		d_tok(msg, &n, tok, toklen);
+	if (post != NULL)
+		d_str(msg, &n, post);
+	return PROTO_ERROR;
+}
+
+/* "value K " + token + post: for errors about the K-th VALUES token. */
+static int
+reject_value(struct proto_msg *msg, enum proto_reason r, size_t k,
+    const char *tok, size_t toklen, const char *post)
+{
+	size_t n = 0;
+
+	msg->kind = PROTO_EMPTY;
+	msg->reason = r;
+	msg->detail[0] = '\0';
+	d_str(msg, &n, "value ");
+	d_uint(msg, &n, k);
+	d_str(msg, &n, " ");
+	d_tok(msg, &n, tok, toklen);
+	d_str(msg, &n, post);
+	return PROTO_ERROR;
+}
+
+/* ---------------------------------------------------------------------
+ * Line checks: NUL bytes and UTF-8 (RFC 3629; Unicode 15 table 3-7).
+ */
+
+/* Length of the valid UTF-8 sequence at s[0..n) (s[0] >= 0x80), or 0. */
+static size_t
+utf8_seq(const unsigned char *s, size_t n)
+{
+	unsigned char c = s[0];
+
+	if (c >= 0xc2 && c <= 0xdf)
+		return n >= 2 && (s[1] & 0xc0) == 0x80 ? 2 : 0;
+	if (c >= 0xe0 && c <= 0xef) {
+		if (n < 3 || (s[1] & 0xc0) != 0x80 || (s[2] & 0xc0) != 0x80)
+			return 0;
+		if (c == 0xe0 && s[1] < 0xa0)
+			return 0;	/* overlong */
+		if (c == 0xed && s[1] > 0x9f)
+			return 0;	/* UTF-16 surrogate */
+		return 3;
+	}
+	if (c >= 0xf0 && c <= 0xf4) {
+		if (n < 4 || (s[1] & 0xc0) != 0x80 || (s[2] & 0xc0) != 0x80 ||
+		    (s[3] & 0xc0) != 0x80)
+			return 0;
+		if (c == 0xf0 && s[1] < 0x90)
+			return 0;	/* overlong */
+		if (c == 0xf4 && s[1] > 0x8f)
+			return 0;	/* above U+10FFFF */
+		return 4;
+	}
+	return 0;	/* 0x80-0xc1 (continuation, overlong lead), 0xf5-0xff */
+}
+
+/*
+ * Check s[0..n) for NUL bytes and invalid UTF-8. Eight bytes at a time
+ * while they are all in 0x01-0x7f: (v - 0x01..01) | v has a high bit set
+ * in some byte iff some byte is 0x00 or >= 0x80 (a borrow only starts at a
+ * zero byte). Returns PROTO_MSG or the PROTO_ERROR from reject().
+ */
+static int
+check_bytes(const char *s, size_t n, struct proto_msg *msg)
+{
+	const unsigned char *p = (const unsigned char *)s;
+	const uint64_t ones = 0x0101010101010101ULL;
+	const uint64_t highs = 0x8080808080808080ULL;
+	size_t i = 0, k;
+	uint64_t v;
+
+	while (i < n) {
+		if (n - i >= 8) {
+			memcpy(&v, p + i, 8);
+			if ((((v - ones) | v) & highs) == 0) {
+				i += 8;
+				continue;
+			}
+		}
+		if (p[i] == 0) {
+			size_t dn = 0;
+
+			msg->kind = PROTO_EMPTY;
+			msg->reason = PROTO_R_NUL_BYTE;
+			d_str(msg, &dn, "NUL byte at byte ");
+			d_uint(msg, &dn, i + 1);
+			return PROTO_ERROR;
+		}
+		if (p[i] < 0x80) {
+			i++;
+			continue;
+		}
+		k = utf8_seq(p + i, n - i);
+		if (k == 0) {
+			size_t dn = 0;
+
+			msg->kind = PROTO_EMPTY;
+			msg->reason = PROTO_R_BAD_UTF8;
+			d_str(msg, &dn, "invalid UTF-8 at byte ");
+			d_uint(msg, &dn, i + 1);
+			return PROTO_ERROR;
+		}
+		i += k;
+	}
+	return PROTO_MSG;
+}
+
+/* ---------------------------------------------------------------------
+ * Tokens and line forms.
+ */
+
+struct cursor {
+	const char	*p;	/* next byte */
+	const char	*end;	/* end of line (CR already stripped) */
+};
+
+/*
+ * Next token into *t (blank-separated); returns 0 at end of line. *eq is
+ * set to the first '=' in the token or NULL.
+ */
+static int
+next_token(struct cursor *c, struct proto_str *t, const char **eq)
+{
+	const char *p = c->p, *start;
+
+	while (p < c->end && IS(*p, C_BLANK))
+		p++;
+	if (p == c->end) {
+		c->p = p;
+		return 0;
+	}
+	start = p;
+	*eq = NULL;
+	for (; p < c->end && !IS(*p, C_BLANK); p++)
+		if (*p == '=' && *eq == NULL)
+			*eq = p;
+	t->ptr = start;
+	t->len = (size_t)(p - start);
+	c->p = p;
+	return 1;
+}
+
+/* Number token to *v, or the matching reject for the K-th value. */
+static int
+value_number(struct proto_msg *msg, size_t k, const char *tok,
+    size_t toklen, const char *num, size_t numlen, double *v)
+{
+	int rc = proto_parse_number(num, numlen, v);
+
+	if (rc == 0)
+		return PROTO_MSG;
+	if (rc == E_NUMERIC)
+		return reject_value(msg, PROTO_R_NON_FINITE, k, tok, toklen,
+		    " is not a finite number");
+	return reject_value(msg, PROTO_R_NOT_A_NUMBER, k, tok, toklen,
+	    " is not a decimal number");
+}
+
+#define DUP_LINEAR	16	/* up to this many names: pairwise compare */
+#define DUP_SLOTS	512	/* hash slots (> 2 * PROTO_MAX_VALUES) */
+
+/* FNV-1a (Fowler, Noll, Vo), 32-bit. */
+static uint32_t
+name_hash(const char *s, size_t len)
+{
+	uint32_t h = 2166136261u;
+	size_t i;
+
+	for (i = 0; i < len; i++) {
+		h ^= (unsigned char)s[i];
+		h *= 16777619u;
+	}
+	return h;
+}
+
+static int
+same_name(const struct proto_str *a, const char *s, size_t len)
+{
+	return a->len == len && memcmp(a->ptr, s, len) == 0;
+}
+
+/*
+ * Insert values[idx].name into the open-addressing table slots (entries
+ * are index + 1, 0 = empty); returns 1 if an equal name was there.
+ */
+static int
+dup_insert(uint16_t *slots, const struct proto_value *values, size_t idx)
+{
+	const struct proto_str *nm = &values[idx].name;
+	uint32_t h = name_hash(nm->ptr, nm->len) & (DUP_SLOTS - 1);
+
+	while (slots[h] != 0) {
+		if (same_name(&values[slots[h] - 1].name, nm->ptr, nm->len))
+			return 1;
+		h = (h + 1) & (DUP_SLOTS - 1);
+	}
+	slots[h] = (uint16_t)(idx + 1);
+	return 0;
+}
+
+/*
+ * VALUES after the model (and time): positional or named. target: 1 on a
+ * record line, where the first positional token is the target or `?`;
+ * 0 for .predict, where every positional token is a regressor.
+ */
+static int
+parse_values(struct cursor *c, struct proto_msg *msg, int target)
+{
+	struct proto_str t;
+	const char *eq = NULL;
+	size_t k = 0, i, nlen;
+	uint16_t slots[DUP_SLOTS];
+	int hashed = 0, rc;
+
+	while (next_token(c, &t, &eq)) {
+		if (++k > PROTO_MAX_VALUES) {
+			size_t n = 0;
+
+			msg->kind = PROTO_EMPTY;
+			msg->reason = PROTO_R_TOO_MANY_VALUES;
+			d_str(msg, &n, "more than ");
+			d_uint(msg, &n, PROTO_MAX_VALUES);
+			d_str(msg, &n, " values");
+			return PROTO_ERROR;
+		}
+		if (k == 1)
+			msg->named = eq != NULL;
+		else if ((eq != NULL) != msg->named)
+			return reject_value(msg, PROTO_R_MIXED_FORMS, k, t.ptr,
+			    t.len, msg->named ? " is positional after "
+			    "NAME=VALUE values" : " is NAME=VALUE after "
+			    "positional values");
+		if (!msg->named) {
+			if (target && k == 1) {
+				if (t.len == 1 && t.ptr[0] == '?') {
+					msg->kind = PROTO_PREDICT;
+					continue;
+				}
+				rc = value_number(msg, k, t.ptr, t.len, t.ptr,
+				    t.len, &msg->target);
+				if (rc != PROTO_MSG)
+					return rc;
+				msg->has_target = 1;
+				continue;
+			}
+			rc = value_number(msg, k, t.ptr, t.len, t.ptr, t.len,
+			    &msg->values[msg->nvalues].v);
+			if (rc != PROTO_MSG)
+				return rc;
+			msg->values[msg->nvalues].name.ptr = NULL;
+			msg->values[msg->nvalues].name.len = 0;
+			msg->nvalues++;
+			continue;
+		}
+		nlen = (size_t)(eq - t.ptr);
+		if (proto_check_field_name(t.ptr, nlen) != 0)
+			return reject_value(msg, PROTO_R_BAD_FIELD_NAME, k,
+			    t.ptr, t.len, ": bad field name (1-32 of "
+			    "[A-Za-z0-9_], not starting with a digit)");
+		msg->values[msg->nvalues].name.ptr = t.ptr;
+		msg->values[msg->nvalues].name.len = nlen;
+		if (msg->nvalues < DUP_LINEAR) {
+			for (i = 0; i < msg->nvalues; i++)
+				if (same_name(&msg->values[i].name, t.ptr,
+				    nlen))
+					goto dup;
+		} else {
+			if (!hashed) {
+				memset(slots, 0, sizeof(slots));
+				for (i = 0; i < msg->nvalues; i++)
+					(void)dup_insert(slots, msg->values, i);
+				hashed = 1;
+			}
+			if (dup_insert(slots, msg->values, msg->nvalues))
+				goto dup;
+		}
+		rc = value_number(msg, k, t.ptr, t.len, eq + 1,
+		    (size_t)(t.ptr + t.len - eq - 1),
+		    &msg->values[msg->nvalues].v);
+		if (rc != PROTO_MSG)
+			return rc;
+		msg->nvalues++;
+	}
+	if (k == 0) {
+		size_t n = 0;
+
+		msg->kind = PROTO_EMPTY;
+		msg->reason = PROTO_R_NO_VALUES;
+		d_str(msg, &n, "no values after model ");
+		d_tok(msg, &n, msg->model.ptr, msg->model.len);
+		return PROTO_ERROR;
+	}
+	return PROTO_MSG;
+dup:
+	return reject_value(msg, PROTO_R_DUPLICATE_FIELD, k, t.ptr, t.len,
+	    ": field name already given on this line");
+}
+
+/* A positive decimal count 1..PROTO_COUNT_MAX, or E_ARG. */
+static int
+parse_count(const char *s, size_t len, uint32_t *out)
+{
+	uint64_t v = 0;
+	size_t i;
+
+	if (len == 0 || len > 10)
+		return E_ARG;
+	for (i = 0; i < len; i++) {
+		if (!IS(s[i], C_DIGIT))
+			return E_ARG;
+		v = v * 10 + (uint64_t)(s[i] - '0');
+	}
+	if (v < 1 || v > PROTO_COUNT_MAX)
+		return E_ARG;
+	*out = (uint32_t)v;
+	return 0;
+}
+
+#define EVERY		"every="
+#define EVERY_LEN	(sizeof(EVERY) - 1)
+
+static int
+is_every(const struct proto_str *a)
+{
+	return a->len >= EVERY_LEN && memcmp(a->ptr, EVERY, EVERY_LEN) == 0;
+}
+
+static int
+bad_count(struct proto_msg *msg, const struct proto_str *a)
+{
+	size_t n;
+
+	reject(msg, PROTO_R_BAD_ARGUMENTS, NULL, a->ptr, a->len,
+	    ": N must be an integer from 1 to ");
+	n = strlen(msg->detail);
+	d_uint(msg, &n, PROTO_COUNT_MAX);
+	return PROTO_ERROR;
+}
+
+static int
+bad_name(struct proto_msg *msg, const struct proto_str *a)
+{
+	return reject(msg, PROTO_R_BAD_MODEL_NAME, NULL, a->ptr, a->len,
+	    " is not a valid model name (1-64 of [A-Za-z0-9_.-], "
+	    "starting with a letter or digit)");
+}
+
+/* Arity message: ".get takes 1 argument, got 0". */
+static int
+bad_arity(struct proto_msg *msg, const struct proto_cmd_info *ci,
+    size_t got)
+{
+	size_t n = 0;
+
+	msg->kind = PROTO_EMPTY;
+	msg->reason = PROTO_R_BAD_ARGUMENTS;
+	d_str(msg, &n, ci->name);
+	if (ci->max_args == 0)
+		d_str(msg, &n, " takes no arguments");
+	else if (ci->max_args == ANY) {
+		d_str(msg, &n, " takes at least ");
+		d_uint(msg, &n, (uint64_t)ci->min_args);
+		d_str(msg, &n, ci->min_args == 1 ? " argument" : " arguments");
+	} else if (ci->min_args == ci->max_args) {
+		d_str(msg, &n, " takes ");
+		d_uint(msg, &n, (uint64_t)ci->min_args);
+		d_str(msg, &n, ci->min_args == 1 ? " argument" : " arguments");
+	} else {
+		d_str(msg, &n, " takes ");
+		d_uint(msg, &n, (uint64_t)ci->min_args);
+		d_str(msg, &n, " to ");
+		d_uint(msg, &n, (uint64_t)ci->max_args);
+		d_str(msg, &n, " arguments");
+	}
+	d_str(msg, &n, ", got ");
+	d_uint(msg, &n, got);
+	return PROTO_ERROR;
+}
+
+/* A line whose first token, word, starts with '.'. */
+static int
+parse_command(struct cursor *c, struct proto_msg *msg,
+    const struct proto_str *word)
+{
+	const struct proto_cmd_info *ci;
+	struct proto_str t, *a = msg->args;
+	const char *eq;
+	size_t got = 0;
+
+	ci = proto_cmd_find(word->ptr, word->len);
+	if (ci == NULL)
+		return reject(msg, PROTO_R_UNKNOWN_COMMAND, NULL, word->ptr,
+		    word->len, " is not a command");
+	msg->cmd = ci->cmd;
+	msg->kind = PROTO_COMMAND;
+
+	if (ci->flags & PROTO_CMD_VALUES) {
+		/* .predict NAME VALUES...: NAME here, the rest as values. */
+		if (!next_token(c, &t, &eq))
+			return bad_arity(msg, ci, 0);
+		msg->nargs = 1;
+		a[0] = t;
+		if (proto_check_model_name(t.ptr, t.len) != 0)
+			return bad_name(msg, &t);
+		msg->model = t;
+		msg->kind = PROTO_PREDICT;
+		return parse_values(c, msg, 0);
+	}
+
+	while (next_token(c, &t, &eq)) {
+		if (got < PROTO_MAX_ARGS)
+			a[got] = t;
+		got++;
+	}
+	msg->nargs = got < PROTO_MAX_ARGS ? got : PROTO_MAX_ARGS;
+	if (got < (size_t)ci->min_args ||
+	    (ci->max_args != ANY && got > (size_t)ci->max_args))
+		return bad_arity(msg, ci, got);
+
+	if (ci->flags & PROTO_CMD_NAME) {
+		if (proto_check_model_name(a[0].ptr, a[0].len) != 0)
+			return bad_name(msg, &a[0]);
+		msg->model = a[0];
+	}
+	switch (ci->cmd) {
+	case PROTO_CMD_HISTORY:
+		if (got == 2 && parse_count(a[1].ptr, a[1].len,
+		    &msg->count) != 0)
+			return bad_count(msg, &a[1]);
+		break;
+	case PROTO_CMD_WATCH:
+		/* .watch [NAME|*] [every=N] */
+		if (got >= 1 && !is_every(&a[0])) {
+			if (!(a[0].len == 1 && a[0].ptr[0] == '*')) {
+				if (proto_check_model_name(a[0].ptr,
+				    a[0].len) != 0)
+					return bad_name(msg, &a[0]);
+				msg->model = a[0];
+			}
+			if (got == 2 && !is_every(&a[1]))
+				return reject(msg, PROTO_R_BAD_ARGUMENTS,
+				    NULL, a[1].ptr, a[1].len,
+				    ": expected every=N");
+			if (got == 2 && parse_count(a[1].ptr + EVERY_LEN,
+			    a[1].len - EVERY_LEN, &msg->every) != 0)
+				return bad_count(msg, &a[1]);
+		} else if (got >= 1) {
+			if (got == 2)
+				return reject(msg, PROTO_R_BAD_ARGUMENTS,
+				    NULL, a[1].ptr, a[1].len,
+				    ": every=N must come last");
+			if (parse_count(a[0].ptr + EVERY_LEN,
+			    a[0].len - EVERY_LEN, &msg->every) != 0)
+				return bad_count(msg, &a[0]);
+		}
+		break;
+	default:
+		break;
+	}
+	return PROTO_MSG;
+}
+
+/*
+ * proto_parse_line: parse one complete line s[0..len) without its LF; a
+ * final CR is dropped. lineno is copied to msg->line. Does not apply a
+ * length cap (the reader does). Returns PROTO_MSG with msg filled, or
+ * PROTO_ERROR with msg->reason and msg->detail set (see struct proto_msg
+ * for which fields are then meaningful). Pointers in msg point into s.
+ */
+int
+proto_parse_line(const char *s, size_t len, uint64_t lineno,
+    struct proto_msg *msg)
+{
+	struct cursor c;
+	struct proto_str t;
+	const char *eq;
+	int rc;
+
+	/* Set only the small fields; values[] is filled as far as used. */
+	msg->kind = PROTO_EMPTY;
+	msg->line = lineno;
+	msg->cmd = PROTO_CMD_NONE;
+	msg->model.ptr = NULL;
+	msg->model.len = 0;
+	msg->has_time = 0;
+	msg->time = 0.0;
+	msg->has_target = 0;
+	msg->target = 0.0;
+	msg->named = 0;
+	msg->nargs = 0;
+	msg->count = 0;
+	msg->every = 0;
+	msg->reason = PROTO_NREASONS;
+	msg->detail[0] = '\0';
+	msg->nvalues = 0;
+
+	if (len > 0 && s[len - 1] == '\r')
+		len--;
+	if ((rc = check_bytes(s, len, msg)) != PROTO_MSG)
+		return rc;
+
+	c.p = s;
+	c.end = s + len;
+	if (!next_token(&c, &t, &eq) || t.ptr[0] == '#')
+		return PROTO_MSG;	/* PROTO_EMPTY */
+	if (t.ptr[0] == '.')
+		return parse_command(&c, msg, &t);
+
+	if (proto_check_model_name(t.ptr, t.len) != 0)
+		return bad_name(msg, &t);
+	msg->model = t;
+	msg->kind = PROTO_RECORD;
+
+	/* Optional @TIME right after the model. */
+	{
+		struct cursor save = c;
+
+		if (next_token(&c, &t, &eq) && t.ptr[0] == '@') {
+			if (proto_parse_time(t.ptr + 1, t.len - 1,
+			    &msg->time) != 0)
+				return reject(msg, PROTO_R_BAD_TIME, NULL,
+				    t.ptr, t.len, " is not a valid time "
+				    "(epoch seconds or RFC 3339 date-time)");
+			msg->has_time = 1;
+		} else
+			c = save;
+	}
+	return parse_values(&c, msg, 1);
+}
+
+/* ---------------------------------------------------------------------
+ * The incremental reader.
+ */
+
+/*
+ * proto_reader_new: a reader for lines of at most maxline bytes (LF
+ * excluded, a CR before it included), 1 <= maxline <= PROTO_LINE_MAX.
+ * Allocates its line buffer once. Returns NULL on a bad maxline or when
+ * out of memory. The caller owns the reader; free with proto_reader_free.
+ */
+struct proto_reader *
+proto_reader_new(size_t maxline)
+{
+	struct proto_reader *rd;
+
+	if (maxline == 0 || maxline > PROTO_LINE_MAX)
+		return NULL;
+	if ((rd = calloc(1, sizeof(*rd))) == NULL)
+		return NULL;
+	if ((rd->buf = malloc(maxline)) == NULL)
+		goto fail;
+	rd->cap = maxline;
+	return rd;
+fail:
+	free(rd);
+	return NULL;
+}
+
+/* proto_reader_free: release rd and its buffer. NULL is a no-op. */
+void
+proto_reader_free(struct proto_reader *rd)
+{
+	if (rd == NULL)
+		return;
+	free(rd->buf);
+	free(rd);
+}
+
+/*
+ * proto_reader_reset: forget any partial line and restart line numbering
+ * at 1, as for a new connection. Invalidates pointers in earlier messages.
+ */
+void
+proto_reader_reset(struct proto_reader *rd)
+{
+	rd->len = 0;
+	rd->line = 0;
+	rd->skipping = 0;
+}
+
+static int
+too_long(struct proto_reader *rd, struct proto_msg *msg)
+{
+	size_t n = 0;
+
+	msg->kind = PROTO_EMPTY;
+	msg->line = rd->line;
+	msg->cmd = PROTO_CMD_NONE;
+	msg->model.ptr = NULL;
+	msg->model.len = 0;
+	msg->has_time = msg->has_target = msg->named = 0;
+	msg->time = msg->target = 0.0;
+	msg->nargs = msg->nvalues = 0;
+	msg->count = msg->every = 0;
+	msg->reason = PROTO_R_LINE_TOO_LONG;
+	msg->detail[0] = '\0';
+	d_str(msg, &n, "line is longer than ");
+	d_uint(msg, &n, rd->cap);
+	d_str(msg, &n, " bytes");
+	return PROTO_ERROR;
+}
+
+/*
+ * proto_next: consume bytes from buf[0..len) until one line is complete,
+ * set *used to the number of bytes consumed, and report that line:
+ *   PROTO_MSG        *msg holds the parsed line.
+ *   PROTO_ERROR      the line was rejected: msg->line, msg->reason,
+ *                    msg->detail (and msg->model when known) are set.
+ *   PROTO_NEED_MORE  all of buf was consumed (*used == len) and no line
+ *                    was completed; a partial line is kept in the reader.
+ * Call again with the unconsumed rest (buf + *used) until NEED_MORE. A
+ * line that lies wholly in buf is parsed in place (msg points into buf);
+ * otherwise it is assembled in the reader's buffer. A line longer than
+ * maxline gives one line_too_long error as soon as the cap is exceeded and
+ * the rest of it, up to its LF, is skipped silently.
+ */
+int
+proto_next(struct proto_reader *rd, const char *buf, size_t len,
+    size_t *used, struct proto_msg *msg)
+{
+	const char *nl;
+	size_t off = 0, n;
+
+	for (;;) {
+		nl = off < len ? memchr(buf + off, '\n', len - off) : NULL;
+		if (rd->skipping) {
+			if (nl == NULL) {
+				*used = len;
+				return PROTO_NEED_MORE;
+			}
+			rd->skipping = 0;
+			off = (size_t)(nl - buf) + 1;
+			continue;
+		}
+		n = nl != NULL ? (size_t)(nl - buf) - off : len - off;
+		if (n > rd->cap - rd->len) {
+			rd->line++;
+			rd->len = 0;
+			if (nl != NULL)
+				*used = (size_t)(nl - buf) + 1;
+			else {
+				*used = len;
+				rd->skipping = 1;
+			}
+			return too_long(rd, msg);
+		}
+		if (nl == NULL) {
+			memcpy(rd->buf + rd->len, buf + off, n);
+			rd->len += n;
+			*used = len;
+			return PROTO_NEED_MORE;
+		}
+		*used = (size_t)(nl - buf) + 1;
+		rd->line++;
+		if (rd->len == 0)
+			return proto_parse_line(buf + off, n, rd->line, msg);
+		memcpy(rd->buf + rd->len, buf + off, n);
+		n += rd->len;
+		rd->len = 0;
+		return proto_parse_line(rd->buf, n, rd->line, msg);
+	}
+}
+
+/*
+ * proto_finish: at end of input, parse a pending final line that had no
+ * LF (a CR at its end is dropped, as before an LF). Returns PROTO_MSG or
+ * PROTO_ERROR as proto_next does, or PROTO_NEED_MORE when nothing was
+ * pending (including the tail of an over-long line, already reported).
+ * The reader is then empty; line numbering continues.
+ */
+int
+proto_finish(struct proto_reader *rd, struct proto_msg *msg)
+{
+	size_t n;
+
+	if (rd->skipping) {
+		rd->skipping = 0;
+		return PROTO_NEED_MORE;
+	}
+	if (rd->len == 0)
+		return PROTO_NEED_MORE;
+	rd->line++;
+	n = rd->len;
+	rd->len = 0;
+	return proto_parse_line(rd->buf, n, rd->line, msg);
+}
+
+/* ---------------------------------------------------------------------
+ * Replies.
+ */
+
+/*
+ * proto_format_error: write {"error":"<reason>","line":N,"detail":"..."}
+ * as one JSON value into j (line 0 when the error is not about a line;
+ * detail NULL writes ""). Returns 0, or E_LIMIT when j overflowed.
+ */
+int
+proto_format_error(struct json *j, uint64_t line, enum proto_reason r,
+    const char *detail)
+{
+	json_obj_begin(j);
+	json_key(j, "error");
+	json_str(j, proto_reason_str(r));
+	json_key(j, "line");
+	json_uint(j, line);
+	json_key(j, "detail");
+	json_str(j, detail != NULL ? detail : "");
+	return json_obj_end(j);
+}
