@@ -38,14 +38,16 @@ FINAL_LDFLAGS = $(HARDEN_LD) $(LDFLAGS) $(SAN)
 # The pure engine: no I/O, no libuv, no globals. Built into libcore.a, which
 # the daemon, the client and the unit tests link. Add new pure modules here.
 CORE_SRC = daemon/err.c daemon/rls.c daemon/stats.c daemon/alarm.c \
-           daemon/terms.c daemon/json.c daemon/proto.c
+           daemon/terms.c daemon/json.c daemon/proto.c daemon/model.c \
+           daemon/conf.c
 # Daemon-only modules (may use libuv and I/O).
 DAEMON_SRC = daemon/main.c
 CLIENT_SRC = client/main.c
 # Unit tests: one check_<module>.c per pure module plus the runner.
 TEST_SRC = tests/check_main.c tests/check_err.c tests/testutil.c tests/nist.c \
            tests/check_rls.c tests/check_stats.c tests/check_alarm.c \
-           tests/check_terms.c tests/check_json.c tests/check_proto.c
+           tests/check_terms.c tests/check_json.c tests/check_proto.c \
+           tests/check_conf.c
 
 CORE_OBJ   = $(CORE_SRC:%.c=$(BUILD)/%.o)
 DAEMON_OBJ = $(DAEMON_SRC:%.c=$(BUILD)/%.o)

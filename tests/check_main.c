@@ -23,6 +23,7 @@ main(void)
 	srunner_add_suite(sr, terms_suite());
 	srunner_add_suite(sr, json_suite());
 	srunner_add_suite(sr, proto_suite());
+	srunner_add_suite(sr, conf_suite());
 	srunner_run_all(sr, CK_NORMAL);
 	nfail = srunner_ntests_failed(sr);
 	nrun = srunner_ntests_run(sr);

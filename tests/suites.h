@@ -11,5 +11,6 @@ Suite *alarm_suite(void);
 Suite *terms_suite(void);
 Suite *json_suite(void);
 Suite *proto_suite(void);
+Suite *conf_suite(void);
 
 #endif
