@@ -63,6 +63,7 @@ CLIENT_SRC = \
 # Unit tests: one check_<module>.c per pure module plus the runner.
 TEST_SRC = \
 	tests/check_alarm.c \
+	tests/check_conf.c \
 	tests/check_dist.c \
 	tests/check_err.c \
 	tests/check_json.c \

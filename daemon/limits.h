@@ -24,4 +24,11 @@
 #define DIST_CUSUM_HMAX		40.0	/* largest CUSUM decision interval h (sigma) */
 #define DIST_CUSUM_ARL0_MAX	1e10	/* largest target in-control ARL for h search */
 
+/* Configuration (daemon/conf.h). */
+#define CONF_LINE_MAX		8192	/* bytes in one physical config line */
+#define CONF_FILE_MAX		1048576	/* bytes in a config file */
+#define CONF_PATH_MAX		1023	/* bytes in a configured path */
+#define CONF_SOCKET_PATH_MAX	107	/* socket path: sun_path less its NUL */
+#define CONF_HOST_MAX		45	/* an IPv6 literal (INET6_ADDRSTRLEN - 1) */
+
 #endif

@@ -1085,11 +1085,11 @@ START_TEST(test_proto_reason_strings)
 		"unknown_model", "wrong_count", "unknown_field",
 		"missing_field", "term_non_finite", "model_limit",
 		"connection_limit", "denied", "auth_required", "frozen",
-		"busy", "internal",
+		"busy", "internal", "not_ready",
 	};
 	int r;
 
-	ck_assert_int_eq(PROTO_NREASONS, 26);
+	ck_assert_int_eq(PROTO_NREASONS, 27);
 	for (r = 0; r < PROTO_NREASONS; r++)
 		ck_assert_str_eq(proto_reason_str((enum proto_reason)r),
 		    want[r]);

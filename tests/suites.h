@@ -15,5 +15,6 @@ Suite *model_suite(void);
 Suite *nist_suite(void);
 Suite *recursive_suite(void);
 Suite *dist_suite(void);
+Suite *conf_suite(void);
 
 #endif
