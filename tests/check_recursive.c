@@ -72,7 +72,7 @@ static double in[NREC][NCOLS], path[NREC][NCOLS];
 static void
 check_path(const char *ycol, const char *pathfile)
 {
-	char inames[NCOLS][24], pnames[NCOLS][24], nm[16];
+	char inames[NCOLS][24], pnames[NCOLS][24], nm[32];
 	struct model_opts o;
 	struct model *m;
 	struct model_step_out so;
