@@ -119,6 +119,7 @@ _check: _all $(UNITS)
 	@$(MAKE) --no-print-directory _integration
 
 _unit: $(UNITS)
+	@sh tests/purity.sh $(LIBCORE)
 	CK_DEFAULT_TIMEOUT=600 COEFD_TESTDATA=tests/data $(UNITS)
 
 _integration: _all

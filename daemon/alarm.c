@@ -23,8 +23,9 @@
  *   for the fit, counted); gate_run consecutive gated records are a level
  *   shift, not outliers: that record is used, the shift alarm goes on and
  *   gating is suspended until |z| <= gate_z for `dwell` records, so a real
- *   shift can never lock the model out. Detectors see z clipped to
- *   +-gate_z, so one spike cannot trip the CUSUM on its own.
+ *   shift can never lock the model out. Gated records are not fed to the
+ *   detectors at all (the caller passes z = NAN for them), and the CUSUM
+ *   sees z clipped to +-gate_z, so spikes cannot read as drift.
  */
 #include <math.h>
 #include <stdio.h>

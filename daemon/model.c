@@ -346,7 +346,10 @@ model_step(struct model *m, const double *phi, double y, double w,
 	stats_report(&m->st, rls_rss(m->rls), p, m->o.intercept,
 	    m->rls->lampow, cur_lambda(m), &sr);
 	in.t = t;
-	in.z = out->z;
+	/* A gated record does not feed the detectors: a burst of isolated
+	 * spikes must not read as drift; a persistent shift is caught by the
+	 * gate's run rule instead. */
+	in.z = out->gate == ALARM_GATE_OUTLIER ? NAN : out->z;
 	in.r2_pred = sr.r2_pred;
 	in.n_eff = sr.n_eff;
 	in.drift_d2 = drift_stat(m, sigma_ref(m));
