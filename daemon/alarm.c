@@ -13,8 +13,9 @@
  *   On alarm the sums restart at 0; the alarm clears after `dwell`
  *   consecutive records with both sums below h/2 (common practice).
  * - R^2 floor: one-step-ahead R^2 below r2_floor once the effective count
- *   reaches r2_min_neff; clears above r2_floor + r2_hyst for `dwell`
- *   records.
+ *   reaches r2_min_neff; clears above min(r2_floor + r2_hyst, (1 +
+ *   r2_floor) / 2) for `dwell` records (the cap keeps the clear level
+ *   below 1, where R^2 can never reach).
  * - Coefficient drift: joint statistic D^2 (computed by the caller in the
  *   metric of the information matrix) above drift_q (a chi-square
  *   quantile), or a per-coefficient tolerance broken; clears below
@@ -23,7 +24,9 @@
  *   for the fit, counted); gate_run consecutive gated records are a level
  *   shift, not outliers: that record is used, the shift alarm goes on and
  *   gating is suspended until |z| <= gate_z for `dwell` records, so a real
- *   shift can never lock the model out. Gated records are not fed to the
+ *   shift can never lock the model out. Gating is also suspended while the
+ *   CUSUM is in alarm: during a drift, large errors are the drift, and
+ *   gating them would stop the model from following it. Gated records are not fed to the
  *   detectors at all (the caller passes z = NAN for them), and the CUSUM
  *   sees z clipped to +-gate_z, so spikes cannot read as drift.
  */
@@ -39,7 +42,9 @@
  * about 1e4 records, NUMERICS-style table computed by dist_cusum_arl);
  * dwell 20 records; R^2 floor off; gate |z| > 5 with a run of 5 for a level
  * shift (common practice: gates of 4-5 sigma, runs of 3-5); joint drift off
- * until a reference is pinned; warm-up 20 one-step-ahead errors.
+ * until a reference is pinned; warm-up 100 one-step-ahead errors (the
+ * detector scale sigma_ref is estimated from them: with 20 the estimate is
+ * off by about 30 % and z is not yet N(0,1)).
  */
 void
 alarm_opts_default(struct alarm_opts *o)
@@ -54,7 +59,7 @@ alarm_opts_default(struct alarm_opts *o)
 	o->gate_run = 5;
 	o->drift_q = INFINITY;
 	o->drift_clear = 0.5;
-	o->warmup = 20;
+	o->warmup = 100;
 }
 
 /*
@@ -152,7 +157,7 @@ alarm_gate(struct alarm *a, const struct alarm_opts *o, double z, double t,
 	if (isnan(z) || !alarm_armed(a, o))
 		return ALARM_GATE_PASS;
 	big = fabs(z) > o->gate_z;
-	if (a->st[ALARM_SHIFT].on) {
+	if (a->st[ALARM_SHIFT].on || a->st[ALARM_CUSUM].on) {
 		/* Gating suspended: the model must be free to follow. */
 		*events |= calm_or_not(a, o, ALARM_SHIFT, !big, t);
 		return ALARM_GATE_PASS;
@@ -209,8 +214,11 @@ alarm_step(struct alarm *a, const struct alarm_opts *o,
 			    in->n_eff >= o->r2_min_neff)
 				ev |= set_state(a, ALARM_R2, 1, in->t);
 		} else {
-			ev |= calm_or_not(a, o, ALARM_R2,
-			    in->r2_pred > o->r2_floor + o->r2_hyst, in->t);
+			double clear = fmin(o->r2_floor + o->r2_hyst,
+			    (1 + o->r2_floor) / 2);
+
+			ev |= calm_or_not(a, o, ALARM_R2, in->r2_pred > clear,
+			    in->t);
 		}
 	}
 

@@ -323,7 +323,12 @@ model_step(struct model *m, const double *phi, double y, double w,
 	out->used = !m->frozen && out->gate != ALARM_GATE_OUTLIER && w > 0;
 
 	if (out->gate != ALARM_GATE_OUTLIER && a.determined && w > 0) {
-		stats_add_prior(&m->st, y, out->e, w, lam, m->o.intercept);
+		/* One-step-ahead sums start after the warm-up (a burn-in): the
+		 * first errors after a diffuse start say nothing about the
+		 * model's quality and would dominate a memory's worth. */
+		if (alarm_armed(&m->al, &m->o.alarm))
+			stats_add_prior(&m->st, y, out->e, w, lam,
+			    m->o.intercept);
 		if (!alarm_any(&m->al)) {
 			double laml = 1 - (1 - lam) / m->o.sigma_memory;
 
@@ -528,8 +533,11 @@ model_pin(struct model *m, double t)
 	m->pin_t = t;
 	m->pin_sigma = sigma_ref(m);
 	m->o.alarm.drift_q = dist_chi2_quantile(1 - m->o.drift_alpha, m->o.p);
-	m->al.st[ALARM_DRIFT].on = 0;
-	m->al.st[ALARM_DRIFT].t_changed = t;
+	/* Drift is now measured from here: an active drift alarm ends. */
+	if (m->al.st[ALARM_DRIFT].on) {
+		m->al.st[ALARM_DRIFT].on = 0;
+		m->al.st[ALARM_DRIFT].t_changed = t;
+	}
 	m->al.calm[ALARM_DRIFT] = 0;
 	return 0;
 }

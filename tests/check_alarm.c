@@ -192,6 +192,16 @@ START_TEST(test_alarm_r2_floor)
 	alarm_step(&a, &o, &in);
 	alarm_step(&a, &o, &in);
 	ck_assert(alarm_step(&a, &o, &in) & ALARM_EV_OFF(ALARM_R2));
+	/* A floor near 1: the clear level is capped at (1 + floor) / 2, so
+	 * the alarm can still clear (regression, 2026-12-02: floor 0.98 with
+	 * hysteresis 0.05 once asked for R^2 > 1.03). */
+	o.r2_floor = 0.98;
+	in.r2_pred = 0.97;
+	ck_assert(alarm_step(&a, &o, &in) & ALARM_EV_ON(ALARM_R2));
+	in.r2_pred = 0.995;
+	alarm_step(&a, &o, &in);
+	alarm_step(&a, &o, &in);
+	ck_assert(alarm_step(&a, &o, &in) & ALARM_EV_OFF(ALARM_R2));
 }
 END_TEST
 
