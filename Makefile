@@ -2,8 +2,8 @@
 # coefd: one GNU Makefile. CC, CFLAGS, LDFLAGS, OPT may be overridden; the
 # project's own flags are composed into FINAL_CFLAGS / FINAL_LDFLAGS.
 #
-# Public targets: all (default), check, san, integration, demo, bench,
-# clean, deps. The top-level targets first run the dependency step
+# Public targets: all (default), check, san, valgrind, fuzz, fuzz-ci,
+# integration, demo, bench, clean, deps. The top-level targets first run the dependency step
 # (.ci/deps), then re-enter make so pkg-config sees the installed packages.
 
 CC      ?= cc
@@ -90,8 +90,8 @@ UNITS   = $(BUILD)/check_unit
 
 export OPENBLAS_NUM_THREADS = 1
 
-.PHONY: all check san integration demo bench clean deps \
-        _all _check _unit _integration
+.PHONY: all check san valgrind fuzz fuzz-ci integration demo bench clean \
+        deps _all _check _unit _integration _valgrind _fuzz
 
 all: deps
 	@$(MAKE) --no-print-directory _all
@@ -108,6 +108,36 @@ san: deps
 
 integration: deps
 	@$(MAKE) --no-print-directory _integration
+
+# Fuzzing with libFuzzer (clang): each target in FUZZ_TARGETS is
+# tests/fuzz/fuzz_<name>.c with seeds in tests/fuzz/<name>/ (and an
+# optional tests/fuzz/<name>.dict); run.sh prints executions and coverage.
+# fuzz-ci is the short pass CI runs.
+FUZZ_SECONDS ?= 60
+FUZZ_CC ?= clang
+FUZZ_TARGETS = \
+	conf \
+	proto
+FUZZ_SAN = -fsanitize=fuzzer-no-link,address,undefined \
+	-fno-omit-frame-pointer -fno-sanitize-recover=all
+
+fuzz: deps
+	@sh .ci/deps fuzz
+	@$(MAKE) --no-print-directory BUILD=build-fuzz CC=$(FUZZ_CC) OPT=-O1 \
+	    SAN="$(FUZZ_SAN)" FUZZ_SECONDS=$(FUZZ_SECONDS) _fuzz
+
+fuzz-ci:
+	@$(MAKE) --no-print-directory fuzz FUZZ_SECONDS=20
+
+_fuzz: $(FUZZ_TARGETS:%=$(BUILD)/fuzz_%)
+	@for t in $(FUZZ_TARGETS); do \
+	    sh tests/fuzz/run.sh $(BUILD) $$t $(FUZZ_SECONDS) || exit 1; \
+	done
+
+# Keep the objects (they are intermediate in this pattern chain).
+.SECONDARY: $(FUZZ_TARGETS:%=$(BUILD)/tests/fuzz/fuzz_%.o)
+$(BUILD)/fuzz_%: $(BUILD)/tests/fuzz/fuzz_%.o $(LIBCORE)
+	$(CC) $(FINAL_LDFLAGS) -fsanitize=fuzzer -o $@ $< $(LIBCORE) $(CORE_LIBS)
 
 deps:
 	@sh .ci/deps
@@ -153,6 +183,6 @@ $(BUILD)/tests/%.o: tests/%.c
 	$(CC) $(FINAL_CFLAGS) $(CORE_CFLAGS) $(TEST_CFLAGS) -c -o $@ $<
 
 clean:
-	rm -rf build build-san
+	rm -rf build build-san build-fuzz
 
 -include $(CORE_OBJ:.o=.d) $(DAEMON_OBJ:.o=.d) $(CLIENT_OBJ:.o=.d) $(TEST_OBJ:.o=.d)

@@ -25,7 +25,10 @@
 /* The range texts below spell these limits out. */
 _Static_assert(TERMS_MAX == 255, "update the max_features range text");
 _Static_assert(PROTO_LINE_MAX == 1048576, "update the max_line range text");
-_Static_assert(DIST_CUSUM_ARL0_MAX == 1e10, "update the cusum_arl text");
+/* A floating constant may appear in an integer constant expression only
+ * as the operand of a cast (C11 6.6p6), which clang enforces. */
+_Static_assert((long long)DIST_CUSUM_ARL0_MAX == 10000000000LL,
+    "update the cusum_arl text");
 _Static_assert(CONF_SOCKET_PATH_MAX == 107, "update the socket text");
 _Static_assert(CONF_PATH_MAX == 1023, "update the path texts");
 _Static_assert(PROTO_MAX_VALUES - 1 == 255, "update the fields text");
