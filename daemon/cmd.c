@@ -2,8 +2,9 @@
 /*
  * cmd: the command layer. Records go to the registry (no reply unless
  * rejected: pipelined); predictions and commands get one JSON line each.
- * Access rules: state-changing commands need an admin session (the Unix
- * socket, or TCP when admin_from_tcp is set); when a token is configured,
+ * Access rules: state-changing commands need an admin session (on the
+ * Unix socket root, the daemon's user and admin_users, as net decides
+ * from SO_PEERCRED; on TCP every peer when admin_from_tcp is set); when a token is configured,
  * TCP peers must present it with .auth before writing records or running
  * admin commands; UDP peers may only send records. PURE apart from the
  * hooks: no libuv, no I/O, no clocks.
@@ -703,8 +704,9 @@ cmd_handle(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
 	if (ci != NULL && (ci->flags & PROTO_CMD_ADMIN)) {
 		if (!s->admin)
 			return reject(c, j, msg->line, PROTO_R_DENIED,
-			    "state-changing commands are allowed on the Unix "
-			    "socket only (see admin_from_tcp)");
+			    "state-changing commands need an admin peer (on "
+			    "the Unix socket: root, the daemon's user or "
+			    "admin_users; on TCP: admin_from_tcp)");
 		if (s->need_token && !s->authed)
 			return reject(c, j, msg->line, PROTO_R_AUTH_REQUIRED,
 			    "send .auth TOKEN first");

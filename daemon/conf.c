@@ -47,7 +47,7 @@ struct str {
 
 enum dkey {
 	DK_SOCKET, DK_SOCKET_MODE, DK_TCP, DK_UDP, DK_ALLOW_REMOTE,
-	DK_ADMIN_FROM_TCP, DK_TOKEN_FILE, DK_STATE_DIR, DK_CHECKPOINT_EVERY,
+	DK_ADMIN_FROM_TCP, DK_ADMIN_USERS, DK_TOKEN_FILE, DK_STATE_DIR, DK_CHECKPOINT_EVERY,
 	DK_JOURNAL, DK_MAX_LINE, DK_MAX_CONNECTIONS,
 	DK_MAX_CONNECTIONS_PER_UID, DK_MAX_MODELS, DK_MAX_FEATURES,
 	DK_OUTPUT_BUFFER, DK_STUCK_TIMEOUT, DK_IDLE_TIMEOUT, DK_LOG_LEVEL,
@@ -71,6 +71,7 @@ static const char *const dkey_names[DK_N + 1] = {
 	[DK_UDP] = "udp",
 	[DK_ALLOW_REMOTE] = "allow_remote",
 	[DK_ADMIN_FROM_TCP] = "admin_from_tcp",
+	[DK_ADMIN_USERS] = "admin_users",
 	[DK_TOKEN_FILE] = "token_file",
 	[DK_STATE_DIR] = "state_dir",
 	[DK_CHECKPOINT_EVERY] = "checkpoint_every",
@@ -159,6 +160,11 @@ static const struct keydef dkeys[DK_N] = {
 	    "yes or no" },
 	[DK_ADMIN_FROM_TCP] = { V_BOOL, 0, 0, 0, 0, S_INT,
 	    D(admin_from_tcp), "yes or no" },
+	[DK_ADMIN_USERS] = { V_SPECIAL, 0, 0, 0, 0, S_NONE, 0,
+	    "at most " XSTR(CONF_ADMIN_USERS_MAX) " user names or numeric "
+	    "uids (letters, digits, '.', '_' or '-', not starting with '-', "
+	    "at most " XSTR(CONF_USER_NAME_MAX) " bytes), separated by "
+	    "blanks or commas" },
 	[DK_TOKEN_FILE] = { V_SPECIAL, 0, 0, 0, 0, S_NONE, 0,
 	    "an absolute path of at most " XSTR(CONF_PATH_MAX)
 	    " bytes, or nothing" },
@@ -803,6 +809,36 @@ parse_listen(struct str v, struct conf_listen *l)
 	return 0;
 }
 
+/* A user name (portable: [A-Za-z0-9._-], not starting with '-') or a
+ * numeric uid, each item at most CONF_USER_NAME_MAX bytes. */
+static int
+parse_users(struct str v, struct conf_daemon *d)
+{
+	struct str it;
+	size_t pos = 0, i;
+	int r, n = 0;
+
+	while ((r = next_item(v, &pos, &it)) != 0) {
+		if (r < 0 || n == CONF_ADMIN_USERS_MAX || it.s[0] == '-')
+			return E_ARG;
+		for (i = 0; i < it.len; i++) {
+			char ch = it.s[i];
+
+			if (!(ch >= 'a' && ch <= 'z') &&
+			    !(ch >= 'A' && ch <= 'Z') &&
+			    !(ch >= '0' && ch <= '9') && ch != '.' &&
+			    ch != '_' && ch != '-')
+				return E_ARG;
+		}
+		if (str_copy(d->admin_users[n], sizeof(d->admin_users[n]),
+		    it) != 0)
+			return E_ARG;
+		n++;
+	}
+	d->nadmin_users = n;
+	return 0;
+}
+
 static int
 daemon_key(struct pstate *ps, int k, struct str v, int line)
 {
@@ -833,6 +869,9 @@ daemon_key(struct pstate *ps, int k, struct str v, int line)
 		break;
 	case DK_SOCKET_MODE:
 		rc = parse_mode(v, &d->socket_mode);
+		break;
+	case DK_ADMIN_USERS:
+		rc = parse_users(v, d);
 		break;
 	case DK_TCP:
 		rc = parse_listen(v, &d->tcp);
@@ -1652,7 +1691,8 @@ key_line(struct pstate *ps, struct str s, int line)
 		return fail(ps, line, "duplicate key '%s' (first at line %d)",
 		    names[k], kline[k]);
 	kline[k] = line;
-	if (val.len == 0 && !(ps->sect == SECT_DAEMON && k == DK_TOKEN_FILE))
+	if (val.len == 0 && !(ps->sect == SECT_DAEMON &&
+	    (k == DK_TOKEN_FILE || k == DK_ADMIN_USERS)))
 		return fail(ps, line, "%s: missing value; expected %s",
 		    names[k], ps->sect == SECT_DAEMON ? dkeys[k].expect :
 		    mkeys[k].expect);

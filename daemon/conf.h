@@ -56,6 +56,10 @@ struct conf_daemon {
 	struct conf_listen tcp, udp;
 	int		 allow_remote;		/* bool */
 	int		 admin_from_tcp;	/* bool */
+	int		 nadmin_users;
+	char		 admin_users[CONF_ADMIN_USERS_MAX]
+			    [CONF_USER_NAME_MAX + 1];	/* names or uids, as
+						 * written; main resolves */
 	char		 token_file[CONF_PATH_MAX + 1];	/* "" = none */
 	char		 state_dir[CONF_PATH_MAX + 1];
 	double		 checkpoint_every;

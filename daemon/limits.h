@@ -30,5 +30,7 @@
 #define CONF_PATH_MAX		1023	/* bytes in a configured path */
 #define CONF_SOCKET_PATH_MAX	107	/* socket path: sun_path less its NUL */
 #define CONF_HOST_MAX		45	/* an IPv6 literal (INET6_ADDRSTRLEN - 1) */
+#define CONF_ADMIN_USERS_MAX	32	/* entries in admin_users */
+#define CONF_USER_NAME_MAX	32	/* bytes in a user name (useradd's limit) */
 
 #endif

@@ -7,6 +7,7 @@
 #include <errno.h>
 #include <fcntl.h>
 #include <getopt.h>
+#include <pwd.h>
 #include <signal.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -43,6 +44,9 @@ struct daemon {
 	struct net	*net;
 	struct cmd_ctx	 cmd;
 	char		*token;
+	uid_t		 admin_uids[CONF_ADMIN_USERS_MAX];	/* resolved
+						 * admin_users of conf */
+	size_t		 nadmin_uids;
 	uv_signal_t	 sig_hup, sig_term, sig_int;
 	int		 stopping;
 	int		 verbose;
@@ -153,6 +157,48 @@ load_token(const struct conf *c, char *err, size_t elen)
 	return t;
 }
 
+/*
+ * admin_users -> uids: an all-digit entry is a uid, anything else a user
+ * name looked up in the user database. An unknown name is an error (a
+ * typo must not silently leave an administrator locked out, or let the
+ * wrong account in after a new user takes the name).
+ */
+static int
+resolve_admins(const struct conf *c, uid_t *uids, size_t *n, char *err,
+    size_t elen)
+{
+	struct passwd pw, *res;
+	char buf[4096];
+	int i, rc;
+
+	*n = 0;
+	for (i = 0; i < c->d.nadmin_users; i++) {
+		const char *u = c->d.admin_users[i];
+		char *end;
+		unsigned long v;
+
+		if (u[strspn(u, "0123456789")] == '\0') {
+			errno = 0;
+			v = strtoul(u, &end, 10);
+			if (errno != 0 || v >= (unsigned long)(uid_t)-1) {
+				snprintf(err, elen, "admin_users: uid %s is "
+				    "out of range", u);
+				return E_ARG;
+			}
+			uids[(*n)++] = (uid_t)v;
+			continue;
+		}
+		rc = getpwnam_r(u, &pw, buf, sizeof(buf), &res);
+		if (rc != 0 || res == NULL) {
+			snprintf(err, elen, "admin_users: no user '%s'%s%s", u,
+			    rc != 0 ? ": " : "", rc != 0 ? strerror(rc) : "");
+			return E_ARG;
+		}
+		uids[(*n)++] = pw.pw_uid;
+	}
+	return 0;
+}
+
 static void
 net_opts_of(const struct daemon *d, const struct conf *c, struct net_opts *o)
 {
@@ -169,6 +215,8 @@ net_opts_of(const struct daemon *d, const struct conf *c, struct net_opts *o)
 		o->udp_port = c->d.udp.port;
 	}
 	o->admin_from_tcp = c->d.admin_from_tcp;
+	o->admin_uids = d->admin_uids;
+	o->nadmin_uids = d->nadmin_uids;
 	o->tcp_token = c->d.token_file[0] != '\0';
 	o->max_line = (size_t)c->d.max_line;
 	o->out_cap = (size_t)c->d.output_buffer;
@@ -261,14 +309,22 @@ do_reload(struct daemon *d, char *msg, size_t len, int *kept, int *stale,
 	struct net_opts no;
 	struct conf *c;
 	char *tok = NULL;
+	uid_t uids[CONF_ADMIN_USERS_MAX];
+	size_t nuids;
 
 	if ((c = load_conf(d->conf_path, msg, len)) == NULL)
 		return E_ARG;
+	if (resolve_admins(c, uids, &nuids, msg, len) != 0) {
+		conf_free(c);
+		return E_ARG;
+	}
 	if (c->d.token_file[0] != '\0' &&
 	    (tok = load_token(c, msg, len)) == NULL) {
 		conf_free(c);
 		return E_ARG;
 	}
+	memcpy(d->admin_uids, uids, nuids * sizeof(uid_t));
+	d->nadmin_uids = nuids;
 	registry_set_conf(d->reg, c, kept, stale, orphan);
 	conf_free(d->conf);
 	d->conf = c;
@@ -461,6 +517,12 @@ main(int argc, char **argv)
 	log_init(LOG_LVL_INFO);
 	if ((d.conf = load_conf(d.conf_path, err, sizeof(err))) == NULL) {
 		fprintf(stderr, "%s\n", err);
+		return EXIT_CONFIG;
+	}
+	if (resolve_admins(d.conf, d.admin_uids, &d.nadmin_uids, err,
+	    sizeof(err)) != 0) {
+		fprintf(stderr, "%s: %s\n", d.conf_path, err);
+		conf_free(d.conf);
 		return EXIT_CONFIG;
 	}
 	if (check) {

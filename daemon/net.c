@@ -70,6 +70,8 @@ struct conn {
 struct net {
 	uv_loop_t	*loop;
 	struct net_opts	 o;
+	uid_t		 admin_uids[CONF_ADMIN_USERS_MAX];	/* o's copy */
+	uid_t		 self_uid;	/* the daemon's effective uid */
 	char		*unix_path;	/* owned copy, unlinked at close */
 	struct net_handler h;
 	uv_pipe_t	 upipe;
@@ -452,6 +454,40 @@ peer_name(struct conn *c)
 	snprintf(c->sess.peer, sizeof(c->sess.peer), "%s:%d", host, port);
 }
 
+/*
+ * The admin rule for Unix peers: root, the daemon's own user and the
+ * configured admin_users may change state; any other user who can open
+ * the socket (its mode decides) may send records and queries. A peer
+ * whose credentials could not be read is not an admin.
+ */
+static int
+unix_admin(const struct net *n, uid_t uid)
+{
+	size_t i;
+
+	if (uid == (uid_t)-1)
+		return 0;
+	if (uid == 0 || uid == n->self_uid)
+		return 1;
+	for (i = 0; i < n->o.nadmin_uids; i++)
+		if (n->admin_uids[i] == uid)
+			return 1;
+	return 0;
+}
+
+static void
+set_admins(struct net *n, const struct net_opts *o)
+{
+	size_t k = o->nadmin_uids;
+
+	if (k > CONF_ADMIN_USERS_MAX)
+		k = CONF_ADMIN_USERS_MAX;
+	if (k > 0)
+		memcpy(n->admin_uids, o->admin_uids, k * sizeof(uid_t));
+	n->o.admin_uids = NULL;
+	n->o.nadmin_uids = k;
+}
+
 /* Refuse a connection that is over a limit: one error line, then close. */
 static void
 conn_refuse(struct conn *c, enum proto_reason why, const char *detail)
@@ -513,7 +549,8 @@ on_connection(uv_stream_t *server, int status)
 		return;
 	}
 	peer_name(c);
-	c->sess.admin = is_unix || n->o.admin_from_tcp;
+	c->sess.admin = is_unix ? unix_admin(n, c->sess.uid) :
+	    n->o.admin_from_tcp;
 	c->sess.need_token = !is_unix && n->o.tcp_token;
 	if (n->shutting) {
 		conn_refuse(c, PROTO_R_BUSY, "shutting down");
@@ -779,6 +816,8 @@ net_start(uv_loop_t *loop, const struct net_opts *o,
 	n->loop = loop;
 	n->o = *o;
 	n->h = *h;
+	n->self_uid = geteuid();
+	set_admins(n, o);
 	n->o.unix_path = NULL;
 	n->o.tcp_host = n->o.udp_host = NULL;
 	if (o->unix_path != NULL)
@@ -802,7 +841,8 @@ net_start(uv_loop_t *loop, const struct net_opts *o,
 	return rc;
 }
 
-/* net_apply_opts: limits and timeouts from a reloaded config. */
+/* net_apply_opts: limits, timeouts and admin users from a reloaded
+ * config; connections already open keep their admin status. */
 void
 net_apply_opts(struct net *n, const struct net_opts *o)
 {
@@ -814,6 +854,7 @@ net_apply_opts(struct net *n, const struct net_opts *o)
 	n->o.stuck_ms = o->stuck_ms;
 	n->o.admin_from_tcp = o->admin_from_tcp;
 	n->o.tcp_token = o->tcp_token;
+	set_admins(n, o);
 }
 
 static void

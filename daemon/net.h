@@ -27,6 +27,10 @@ struct net_opts {
 	const char	*udp_host;	/* NULL: no UDP */
 	int		 udp_port;
 	int		 admin_from_tcp;
+	const uid_t	*admin_uids;	/* Unix peers that may run admin
+					 * commands besides root and the
+					 * daemon's own uid (copied) */
+	size_t		 nadmin_uids;	/* <= CONF_ADMIN_USERS_MAX */
 	int		 tcp_token;	/* 1: TCP writers must .auth first */
 	size_t		 max_line;
 	size_t		 out_cap;	/* per-connection output cap */

@@ -210,7 +210,8 @@ START_TEST(test_conf_keys_lists)
 	ck_assert_ptr_null(conf_keys(NULL));
 	for (n = 0; d[n] != NULL; n++)
 		;
-	ck_assert_int_eq(n, 21);	/* the [daemon] table of the spec */
+	ck_assert_int_eq(n, 22);	/* the [daemon] table of the spec,
+					 * plus admin_users */
 	for (n = 0; m[n] != NULL; n++)
 		;
 	ck_assert_int_eq(n, 24);	/* the [model] table of the spec */
@@ -264,7 +265,7 @@ START_TEST(test_conf_defaults_roundtrip)
 	/* Writing every default explicitly gives the same struct. */
 	c = parse_ok("[daemon]\nsocket = /run/coefd/coefd.sock\n"
 	    "socket_mode = 0660\ntcp = off\nudp = off\nallow_remote = no\n"
-	    "admin_from_tcp = no\ntoken_file =\nstate_dir = /var/lib/coefd\n"
+	    "admin_from_tcp = no\nadmin_users =\ntoken_file =\nstate_dir = /var/lib/coefd\n"
 	    "checkpoint_every = 5m\njournal = 200ms\nmax_line = 64k\n"
 	    "max_connections = 1024\nmax_connections_per_uid = 256\n"
 	    "max_models = 10000\nmax_features = 64\noutput_buffer = 1M\n"
@@ -605,6 +606,55 @@ START_TEST(test_conf_message_format)
 	ck_assert_int_eq(conf_parse(t, strlen(t), &c, &e), E_ARG);
 	ck_assert_ptr_nonnull(strstr(e.msg, "xxx...'"));
 	ck_assert_uint_lt(strlen(e.msg), 150);
+}
+END_TEST
+
+/* admin_users (issue 9, security checks): user names or uids, nothing that
+ * could be read as a path or an option. */
+START_TEST(test_conf_admin_users)
+{
+	static const char *const bad[] = {
+		"admin_users = -root", "admin_users = ../x",
+		"admin_users = /etc/passwd", "admin_users = a,,b",
+		"admin_users = al:ice",
+		"admin_users = caf\xc3\xa9",
+		"admin_users = abcdefghijabcdefghijabcdefghijabc", /* 33 */
+		NULL
+	};
+	struct conf *c;
+	char text[1024], line[600];
+	size_t i;
+	int k;
+
+	c = parse_ok("");
+	ck_assert_int_eq(c->d.nadmin_users, 0);
+	conf_free(c);
+	c = parse_ok("[daemon]\nadmin_users = alice, 1000 bob.smith_2-x "
+	    "abcdefghijabcdefghijabcdefghijab\n");
+	ck_assert_int_eq(c->d.nadmin_users, 4);
+	ck_assert_str_eq(c->d.admin_users[0], "alice");
+	ck_assert_str_eq(c->d.admin_users[1], "1000");
+	ck_assert_str_eq(c->d.admin_users[2], "bob.smith_2-x");
+	ck_assert_uint_eq(strlen(c->d.admin_users[3]), CONF_USER_NAME_MAX);
+	conf_free(c);
+	for (i = 0; bad[i] != NULL; i++) {
+		snprintf(text, sizeof(text), "[daemon]\n%s\n", bad[i]);
+		parse_err_s(text, 2, "admin_users: expected");
+	}
+	/* A control character is refused before the key is looked at. */
+	parse_err_s("[daemon]\nadmin_users = ali\x01" "ce\n", 2,
+	    "control byte");
+	/* CONF_ADMIN_USERS_MAX entries fit, one more does not. */
+	strcpy(line, "admin_users =");
+	for (k = 0; k < CONF_ADMIN_USERS_MAX; k++)
+		snprintf(line + strlen(line), sizeof(line) - strlen(line),
+		    " u%d", k);
+	snprintf(text, sizeof(text), "[daemon]\n%s\n", line);
+	c = parse_ok(text);
+	ck_assert_int_eq(c->d.nadmin_users, CONF_ADMIN_USERS_MAX);
+	conf_free(c);
+	snprintf(text, sizeof(text), "[daemon]\n%s u99\n", line);
+	parse_err_s(text, 2, "admin_users: expected");
 }
 END_TEST
 
@@ -1328,6 +1378,7 @@ conf_suite(void)
 	tcase_add_test(tc, test_conf_model_bounds);
 	tcase_add_test(tc, test_conf_message_format);
 	tcase_add_test(tc, test_conf_paths);
+	tcase_add_test(tc, test_conf_admin_users);
 	tcase_add_test(tc, test_conf_listen);
 	tcase_add_test(tc, test_conf_durations_sizes);
 	suite_add_tcase(s, tc);
