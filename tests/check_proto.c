@@ -1614,6 +1614,45 @@ START_TEST(test_proto_reader_new_bounds)
 }
 END_TEST
 
+/*
+ * Issue 9 (security): no command takes a file path from a client. Every
+ * argument a command accepts is a model name (checked: no '/', no leading
+ * '.'), a count, `every=N`, `*` or the .auth token; .save and .reload take
+ * none. A new command with a free-form argument must be looked at here.
+ */
+START_TEST(test_proto_no_path_arguments)
+{
+	static const char *const paths[] = { "/etc/passwd", "../x", "./x",
+	    "x/y", "..", NULL };
+	const struct proto_cmd_info *ci;
+	char line[64];
+	int c, i;
+
+	for (c = PROTO_CMD_NONE + 1; c < PROTO_NCMDS; c++) {
+		ci = proto_cmd_info((enum proto_cmd)c);
+		ck_assert_ptr_nonnull(ci);
+		if (ci->max_args == 0)
+			continue;
+		ck_assert_msg((ci->flags & PROTO_CMD_NAME) ||
+		    c == PROTO_CMD_WATCH || c == PROTO_CMD_AUTH,
+		    "%s takes a free-form argument", ci->name);
+		if (c == PROTO_CMD_AUTH)
+			continue;
+		for (i = 0; paths[i] != NULL; i++) {
+			snprintf(line, sizeof(line), "%s %s", ci->name,
+			    paths[i]);
+			ck_assert_msg(parse(line) == PROTO_ERROR,
+			    "\"%s\" accepted", line);
+		}
+	}
+	ck_assert_int_eq(proto_cmd_info(PROTO_CMD_SAVE)->max_args, 0);
+	ck_assert_int_eq(proto_cmd_info(PROTO_CMD_RELOAD)->max_args, 0);
+	for (i = 0; paths[i] != NULL; i++)
+		ck_assert_int_ne(proto_check_model_name(paths[i],
+		    strlen(paths[i])), 0);
+}
+END_TEST
+
 Suite *
 proto_suite(void)
 {
@@ -1670,6 +1709,7 @@ proto_suite(void)
 	tcase_add_test(tc, test_proto_reader_zero_copy);
 	tcase_add_test(tc, test_proto_reader_finish);
 	tcase_add_test(tc, test_proto_reader_new_bounds);
+	tcase_add_test(tc, test_proto_no_path_arguments);
 	suite_add_tcase(s, tc);
 	return s;
 }
