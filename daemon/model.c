@@ -36,6 +36,12 @@
 #include "model.h"
 #include "terms.h"
 
+/* Largest |one-step-ahead error| (and standardised error) added to the
+ * running sums: twice the largest target, so that no error a sane
+ * prediction can produce is clipped; its square, 4e200, times any memory
+ * stays far below DBL_MAX. */
+#define ERR_ABS_MAX	(2 * RLS_VALUE_MAX)
+
 static int
 finite_bounded(double v)
 {
@@ -322,17 +328,29 @@ model_step(struct model *m, const double *phi, double y, double w,
 	out->gate = alarm_gate(&m->al, &m->o.alarm, out->z, t, &out->events);
 	out->used = !m->frozen && out->gate != ALARM_GATE_OUTLIER && w > 0;
 
-	if (out->gate != ALARM_GATE_OUTLIER && a.determined && w > 0) {
+	if (out->gate != ALARM_GATE_OUTLIER && a.determined && w > 0 &&
+	    !isnan(out->e) && !isnan(f)) {
+		/* The running sums below never forget an Inf or a NaN, so
+		 * what they add must be finite. A prediction far outside the
+		 * range of the data (features near 1e-300 next to targets
+		 * near 1e100) can give |e| up to DBL_MAX, and e^2 / f can
+		 * overflow even when the ratio itself is finite: form it as
+		 * (e / sqrt(f))^2 and clip both squares at ERR_SQ_MAX. The
+		 * statistics then say "garbage" (R^2 far below 0) while
+		 * staying finite, and the detectors keep working. */
+		double ec = fmin(fabs(out->e), ERR_ABS_MAX);
+		double u = fmin(fabs(out->e) / sqrt(f), ERR_ABS_MAX);
+
 		/* One-step-ahead sums start after the warm-up (a burn-in): the
 		 * first errors after a diffuse start say nothing about the
 		 * model's quality and would dominate a memory's worth. */
 		if (alarm_armed(&m->al, &m->o.alarm))
-			stats_add_prior(&m->st, y, out->e, w, lam,
+			stats_add_prior(&m->st, y, ec, w, lam,
 			    m->o.intercept);
 		if (!alarm_any(&m->al)) {
 			double laml = 1 - (1 - lam) / m->o.sigma_memory;
 
-			m->sig_num = laml * m->sig_num + out->e * out->e / f;
+			m->sig_num = laml * m->sig_num + u * u;
 			m->sig_w = laml * m->sig_w + 1;
 		}
 	}
