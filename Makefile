@@ -11,6 +11,9 @@ OPT     ?= -O2
 CFLAGS  ?= -g
 LDFLAGS ?=
 BUILD   ?= build
+# Records in the long constant-feature torture test (empty: 10^7); the
+# sanitizer and valgrind runs use fewer.
+TORTURE_N ?=
 
 WARN = -Wall -Wextra -Wstrict-prototypes -Wmissing-prototypes \
        -Wmissing-declarations -Wshadow -Wpointer-arith -Wcast-qual \
@@ -75,6 +78,7 @@ TEST_SRC = \
 	tests/check_rls.c \
 	tests/check_stats.c \
 	tests/check_terms.c \
+	tests/check_torture.c \
 	tests/nist.c \
 	tests/testutil.c
 
@@ -104,7 +108,7 @@ check: deps
 san: deps
 	@$(MAKE) --no-print-directory BUILD=build-san OPT=-O1 \
 	    SAN="-fsanitize=address,undefined -fno-omit-frame-pointer -fno-sanitize-recover=all" \
-	    _check
+	    TORTURE_N=1000000 _check
 
 integration: deps
 	@$(MAKE) --no-print-directory _integration
@@ -150,7 +154,8 @@ _check: _all $(UNITS)
 
 _unit: $(UNITS)
 	@sh tests/purity.sh $(LIBCORE)
-	CK_DEFAULT_TIMEOUT=600 COEFD_TESTDATA=tests/data $(UNITS)
+	CK_DEFAULT_TIMEOUT=600 COEFD_TESTDATA=tests/data \
+	    COEFD_TORTURE_N=$(TORTURE_N) $(UNITS)
 
 _integration: _all
 	@sh tests/integration/run.sh $(BUILD)
