@@ -113,6 +113,29 @@ san: deps
 integration: deps
 	@$(MAKE) --no-print-directory _integration
 
+# The unit tests (CK_FORK=no, one process) and every integration test
+# with the daemon under valgrind memcheck: any error or any leaked block
+# at the daemon's clean shutdown fails (each run's log must be empty).
+VALGRIND = valgrind -q --leak-check=full --show-leak-kinds=all \
+	--errors-for-leak-kinds=all --error-exitcode=99
+
+valgrind: deps
+	@sh .ci/deps valgrind
+	@$(MAKE) --no-print-directory _valgrind
+
+_valgrind: _all $(UNITS)
+	CK_FORK=no CK_DEFAULT_TIMEOUT=6000 COEFD_TESTDATA=tests/data \
+	    COEFD_TORTURE_N=100000 $(VALGRIND) $(UNITS)
+	@rm -rf $(BUILD)/valgrind && mkdir -p $(BUILD)/valgrind
+	COEFD_WRAP="$(VALGRIND) --log-file=$(CURDIR)/$(BUILD)/valgrind/coefd.%p.log" \
+	    sh tests/integration/run.sh $(BUILD)
+	@n=0; bad=0; for f in $(BUILD)/valgrind/*.log; do \
+	    n=$$((n + 1)); [ -s "$$f" ] && { cat "$$f"; bad=1; }; \
+	done; \
+	if [ $$bad -eq 0 ]; then \
+	    echo "valgrind: $$n daemon runs, no errors, no leaks"; \
+	else echo "valgrind: errors or leaks (logs above)"; exit 1; fi
+
 # Fuzzing with libFuzzer (clang): each target in FUZZ_TARGETS is
 # tests/fuzz/fuzz_<name>.c with seeds in tests/fuzz/<name>/ (and an
 # optional tests/fuzz/<name>.dict); run.sh prints executions and coverage.
@@ -120,6 +143,7 @@ integration: deps
 FUZZ_SECONDS ?= 60
 FUZZ_CC ?= clang
 FUZZ_TARGETS = \
+	cmd \
 	conf \
 	proto
 FUZZ_SAN = -fsanitize=fuzzer-no-link,address,undefined \

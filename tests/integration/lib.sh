@@ -24,11 +24,12 @@ cleanup() {
 trap cleanup EXIT INT TERM
 
 # start_daemon CONF: start coefd in the background, wait for its socket.
+# COEFD_WRAP, if set, is a command to run it under (make valgrind).
 start_daemon() {
-	"$COEFD" -c "$1" -s "$SOCK" >"$TMP/coefd.log" 2>&1 &
+	${COEFD_WRAP:-} "$COEFD" -c "$1" -s "$SOCK" >"$TMP/coefd.log" 2>&1 &
 	DPID=$!
 	i=0
-	while [ ! -S "$SOCK" ] && [ $i -lt 100 ]; do
+	while [ ! -S "$SOCK" ] && [ $i -lt 400 ]; do
 		sleep 0.05
 		i=$((i + 1))
 	done
