@@ -29,6 +29,11 @@
 #define NET_READ_BUF	65536
 #define NET_REPLY_BUF	(8u << 20)	/* largest single reply line */
 #define NET_TICK_MS	1000
+/* Pending connects the kernel may queue for us (it caps the value at
+ * net.core.somaxconn): a burst of clients (many workers restarting at
+ * once) must not be turned away with EAGAIN while we are under
+ * max_connections; 128 refused most of a burst of 1000. */
+#define NET_BACKLOG	4096
 
 struct conn;
 
@@ -721,7 +726,8 @@ start_unix(struct net *n, char *errbuf, size_t errlen)
 			return E_IO;
 		}
 	}
-	if ((rc = uv_listen((uv_stream_t *)&n->upipe, 128, on_connection)) != 0)
+	if ((rc = uv_listen((uv_stream_t *)&n->upipe, NET_BACKLOG,
+	    on_connection)) != 0)
 		goto uverr;
 	return 0;
 uverr:
@@ -752,7 +758,8 @@ start_tcp(struct net *n, char *errbuf, size_t errlen)
 		if ((rc = uv_tcp_bind(&n->tcp, (struct sockaddr *)&ss, 0)) != 0)
 			goto uverr;
 	}
-	if ((rc = uv_listen((uv_stream_t *)&n->tcp, 128, on_connection)) != 0)
+	if ((rc = uv_listen((uv_stream_t *)&n->tcp, NET_BACKLOG,
+	    on_connection)) != 0)
 		goto uverr;
 	return 0;
 uverr:

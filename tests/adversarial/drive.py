@@ -452,6 +452,36 @@ class Driver:
                          refused)
         return {"connections_held": held, "over_limit_refused": refused}
 
+    def c_burst(self):
+        """A burst of non-blocking connects with no retry (what a client
+        restarted with many workers does): none may be turned away with
+        EAGAIN while the daemon is under max_connections, i.e. the listen
+        backlog must hold the burst (up to net.core.somaxconn)."""
+        try:
+            with open("/proc/sys/net/core/somaxconn") as f:
+                cap = int(f.read())
+        except (OSError, ValueError):
+            cap = 128
+        k = min(1000, cap - 64, self.a.max_connections // 2)
+        if k < 100:
+            return {"skipped": "net.core.somaxconn is %d" % cap}
+        socks, eagain = [], 0
+        for _ in range(k):
+            s = socket.socket(socket.AF_UNIX, socket.SOCK_STREAM)
+            s.setblocking(False)
+            try:
+                s.connect(self.path)
+                socks.append(s)
+            except BlockingIOError:
+                eagain += 1
+                s.close()
+        for s in socks:
+            s.close()
+        if eagain:
+            raise Failed("%d of %d burst connects refused with EAGAIN" %
+                         (eagain, k))
+        return {"burst": k, "eagain": eagain}
+
     def c_never_reads(self):
         """Clients that pipeline queries and never read the replies: the
         daemon stops reading from them at output_buffer and closes them
@@ -728,6 +758,7 @@ class Driver:
         self.probe = Probe(self.path)
         slow = SlowWriters(self.path, self.n["slow"])
         slow.start()
+        self.case("connect_burst", self.c_burst)
         self.case("connections", self.c_connections)
         self.case("never_reads", self.c_never_reads)
         self.case("long_lines", self.c_long_lines)
