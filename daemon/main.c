@@ -474,7 +474,7 @@ main(int argc, char **argv)
 	struct net_handler nh;
 	struct net_opts no;
 	char err[400];
-	int ch, check = 0, rc, i;
+	int ch, check = 0, rc, i, status;
 
 	/* Matrices are small: OpenBLAS must not start worker threads. It
 	 * reads the variable when the library loads, so re-execute once. */
@@ -584,12 +584,17 @@ main(int argc, char **argv)
 
 	uv_run(&d.loop, UV_RUN_DEFAULT);
 
-	if ((rc = uv_loop_close(&d.loop)) != 0)
+	/* Every handle must be closed by now; one that is not is a shutdown
+	 * bug: exit 1 so that the tests expecting a clean exit catch it. */
+	status = 0;
+	if ((rc = uv_loop_close(&d.loop)) != 0) {
 		log_warnx("loop close: %s", uv_strerror(rc));
+		status = 1;
+	}
 	log_notice("stopped");
 	net_free(d.net);
 	registry_free(d.reg);
 	conf_free(d.conf);
 	free(d.token);
-	return 0;
+	return status;
 }
