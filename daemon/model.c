@@ -258,16 +258,26 @@ coef_out(const struct model *m)
 	double theta[RLS_MAX_P];
 	int j;
 
+	double th_o[RLS_MAX_P], pin_o[RLS_MAX_P];
+	const double *th = theta, *pin = m->theta_pin;
+
 	if (!m->pinned || (m->o.tol_abs == NULL && m->o.tol_pct == NULL))
 		return 0;
 	rls_theta(m->rls, theta);
+	/* Tolerances are in the user's terms, not the engine's scaled ones. */
+	if (m->terms != NULL) {
+		terms_to_original(m->terms, theta, NULL, th_o, NULL);
+		terms_to_original(m->terms, m->theta_pin, NULL, pin_o, NULL);
+		th = th_o;
+		pin = pin_o;
+	}
 	for (j = 0; j < m->o.p; j++) {
-		double dv = fabs(theta[j] - m->theta_pin[j]);
+		double dv = fabs(th[j] - pin[j]);
 
 		if (m->o.tol_abs != NULL && dv > m->o.tol_abs[j])
 			return 1;
 		if (m->o.tol_pct != NULL &&
-		    dv > m->o.tol_pct[j] / 100 * fabs(m->theta_pin[j]))
+		    dv > m->o.tol_pct[j] / 100 * fabs(pin[j]))
 			return 1;
 	}
 	return 0;
