@@ -240,19 +240,6 @@ cmd_sync(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
 	return 1;
 }
 
-static void
-alarm_list(struct json *j, const struct model *m)
-{
-	int d;
-
-	json_key(j, "alarms");
-	json_arr_begin(j);
-	for (d = 0; d < ALARM_NDET; d++)
-		if (m->al.st[d].on)
-			json_str(j, alarm_name((enum alarm_det)d));
-	json_arr_end(j);
-}
-
 static int
 cmd_list(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
     double now, struct json *j)
@@ -290,7 +277,7 @@ cmd_list(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
 		json_num(j, rep.s.r2_pred);
 		json_key(j, "sigma");
 		json_num(j, rep.s.sigma);
-		alarm_list(j, m);
+		render_alarms(j, m);
 		json_key(j, "frozen");
 		json_bool(j, m->frozen);
 		json_key(j, "stale");

@@ -93,6 +93,20 @@ time_value(struct json *j, double t, int epoch)
 		json_num(j, t);
 }
 
+/* render_alarms: the "alarms" key: names of the detectors in alarm. */
+void
+render_alarms(struct json *j, const struct model *m)
+{
+	int d;
+
+	json_key(j, "alarms");
+	json_arr_begin(j);
+	for (d = 0; d < ALARM_NDET; d++)
+		if (m->al.st[d].on)
+			json_str(j, alarm_name((enum alarm_det)d));
+	json_arr_end(j);
+}
+
 /*
  * render_model: write one JSON object describing r->m with the report
  * r->rep (coefficients already in the user's units) and the coefficient
@@ -156,12 +170,7 @@ render_model(struct json *j, const struct render_model *r)
 	json_num(j, rep->cond);
 	json_key(j, "sigma_ref");
 	json_num(j, rep->sigma_ref);
-	json_key(j, "alarms");
-	json_arr_begin(j);
-	for (d = 0; d < ALARM_NDET; d++)
-		if (m->al.st[d].on)
-			json_str(j, alarm_name((enum alarm_det)d));
-	json_arr_end(j);
+	render_alarms(j, m);
 	json_key(j, "detectors");
 	json_obj_begin(j);
 	for (d = 0; d < ALARM_NDET; d++) {
