@@ -38,6 +38,7 @@ FINAL_LDFLAGS = $(HARDEN_LD) $(LDFLAGS) $(SAN)
 # The pure engine: no I/O, no libuv, no globals. Built into libcore.a, which
 # the daemon, the client and the unit tests link. Add new pure modules here.
 CORE_SRC = \
+	daemon/activate.c \
 	daemon/alarm.c \
 	daemon/cmd.c \
 	daemon/conf.c \
@@ -62,6 +63,7 @@ CLIENT_SRC = \
 	client/main.c
 # Unit tests: one check_<module>.c per pure module plus the runner.
 TEST_SRC = \
+	tests/check_activate.c \
 	tests/check_alarm.c \
 	tests/check_conf.c \
 	tests/check_dist.c \
