@@ -67,6 +67,7 @@ TEST_SRC = \
 	tests/check_activate.c \
 	tests/check_alarm.c \
 	tests/check_conf.c \
+	tests/check_confman.c \
 	tests/check_dist.c \
 	tests/check_err.c \
 	tests/check_json.c \

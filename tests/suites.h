@@ -17,5 +17,6 @@ Suite *recursive_suite(void);
 Suite *dist_suite(void);
 Suite *conf_suite(void);
 Suite *activate_suite(void);
+Suite *confman_suite(void);
 
 #endif
