@@ -37,7 +37,7 @@
 #define DEFAULT_CONF	SYSCONFDIR "/coefd/coefd.conf"
 #define EXIT_CONFIG	78	/* EX_CONFIG: systemd will not restart */
 #define SHUTDOWN_MS	5000
-#define STATUS_MS	5000	/* STATUS= refresh for the service manager */
+#define STATUS_MS	2000	/* STATUS= refresh for the service manager */
 
 struct daemon {
 	uv_loop_t	 loop;
