@@ -332,31 +332,40 @@ watchdog_cb(uv_timer_t *t)
 	svc_notify(d, "WATCHDOG=1");
 }
 
-/* Timers for STATUS= and WATCHDOG=1, then READY=1. */
+/* A repeating timer on the loop calling cb every ms; fatal on failure
+ * (only called before the loop runs). */
+static void
+start_timer(struct daemon *d, uv_timer_t *t, uv_timer_cb cb, uint64_t first,
+    uint64_t ms, const char *what)
+{
+	int rc;
+
+	if ((rc = uv_timer_init(&d->loop, t)) != 0)
+		fatalx("%s timer: %s", what, uv_strerror(rc));
+	t->data = d;
+	if ((rc = uv_timer_start(t, cb, first, ms)) != 0)
+		fatalx("%s timer: %s", what, uv_strerror(rc));
+}
+
+/* Timers for STATUS= and WATCHDOG=1, then READY=1 (all no-ops when no
+ * service manager listens). */
 static void
 svc_ready(struct daemon *d)
 {
 	uint64_t ms;
-	int rc;
 
+	if (d->nfy.fd < 0)
+		return;
 	d->rate_ms = uv_now(&d->loop);
 	d->rate_records = records_seen(d);
-	if (d->nfy.fd >= 0) {
-		if ((rc = uv_timer_init(&d->loop, &d->status_timer)) != 0 ||
-		    (d->status_timer.data = d,
-		    rc = uv_timer_start(&d->status_timer, status_cb, STATUS_MS,
-		    STATUS_MS)) != 0)
-			fatalx("status timer: %s", uv_strerror(rc));
-	}
+	start_timer(d, &d->status_timer, status_cb, STATUS_MS, STATUS_MS,
+	    "status");
 	if (d->wd_usec > 0) {
 		/* Half the interval, as sd_watchdog_enabled(3) advises. */
 		ms = d->wd_usec / 2000;
 		if (ms == 0)
 			ms = 1;
-		if ((rc = uv_timer_init(&d->loop, &d->wd_timer)) != 0 ||
-		    (d->wd_timer.data = d,
-		    rc = uv_timer_start(&d->wd_timer, watchdog_cb, 0, ms)) != 0)
-			fatalx("watchdog timer: %s", uv_strerror(rc));
+		start_timer(d, &d->wd_timer, watchdog_cb, 0, ms, "watchdog");
 		log_info("watchdog: pinging every %llu ms",
 		    (unsigned long long)ms);
 	}
