@@ -31,4 +31,8 @@
 #define CONF_SOCKET_PATH_MAX	107	/* socket path: sun_path less its NUL */
 #define CONF_HOST_MAX		45	/* an IPv6 literal (INET6_ADDRSTRLEN - 1) */
 
+/* Sockets passed by a service manager (daemon/activate.h). */
+#define ACTIVATE_FDS_MAX	16	/* inherited sockets accepted */
+#define ACTIVATE_NAME_MAX	255	/* bytes in one LISTEN_FDNAMES name */
+
 #endif

@@ -16,5 +16,7 @@ Suite *nist_suite(void);
 Suite *recursive_suite(void);
 Suite *dist_suite(void);
 Suite *conf_suite(void);
+Suite *activate_suite(void);
+Suite *confman_suite(void);
 
 #endif
