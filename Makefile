@@ -57,10 +57,17 @@ DAEMON_SRC = \
 	daemon/main.c \
 	daemon/net.c
 CLIENT_SRC = \
+	client/admin.c \
+	client/conn.c \
 	client/csv.c \
+	client/feed.c \
 	client/fit.c \
 	client/jread.c \
-	client/main.c
+	client/main.c \
+	client/out.c \
+	client/plot.c \
+	client/query.c \
+	client/watch.c
 # Unit tests: one check_<module>.c per pure module plus the runner. The
 # client's pure JSON reader is compiled in here too (it is not daemon code,
 # so it stays out of libcore.a).
