@@ -77,12 +77,13 @@ cmd_pin(struct ctl *c, int argc, char **argv)
 	    "as the reference");
 }
 
-/* cmd_freeze: `coefctl freeze NAME`: stop updating; records are refused. */
+/* cmd_freeze: `coefctl freeze NAME`: stop updating the fit; records are
+ * still counted and monitored (the daemon accepts them). */
 int
 cmd_freeze(struct ctl *c, int argc, char **argv)
 {
 	return simple(c, argc, argv, ".freeze", "frozen: its records are "
-	    "refused until it is thawed");
+	    "still checked by the detectors but no longer change the fit");
 }
 
 /* cmd_thaw: `coefctl thaw NAME`: resume updating a frozen model. */

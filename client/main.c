@@ -52,7 +52,7 @@ static const struct ctl_cmd ctl_cmds[] = {
 	  "pin the current coefficients as the reference to measure drift "
 	  "from", "" },
 	{ "freeze", cmd_freeze, "NAME",
-	  "stop updating a model (its records are refused)", "" },
+	  "stop updating a model's fit (records are still monitored)", "" },
 	{ "thaw", cmd_thaw, "NAME", "resume updating a frozen model", "" },
 	{ "reset", cmd_reset, "[--yes] NAME",
 	  "forget what a model has learnt",
