@@ -167,11 +167,12 @@ braille_bit(int dx, int dy)
 	return bit[dy][dx];
 }
 
-static void
-put_cell(const struct canvas *cv, int cx, int cy, int utf8, FILE *fp)
+/* The dots set in cell (cx, cy): braille bits, or 1 for any (ASCII). */
+static unsigned
+cell_bits(const struct canvas *cv, int cx, int cy, int utf8)
 {
 	long w = (long)cv->cols * cv->sx;
-	unsigned bits = 0, cp;
+	unsigned bits = 0;
 	int dx, dy;
 
 	for (dy = 0; dy < cv->sy; dy++)
@@ -179,6 +180,14 @@ put_cell(const struct canvas *cv, int cx, int cy, int utf8, FILE *fp)
 			if (cv->px[((long)cy * cv->sy + dy) * w +
 			    (long)cx * cv->sx + dx])
 				bits |= utf8 ? braille_bit(dx, dy) : 1;
+	return bits;
+}
+
+static void
+put_cell(const struct canvas *cv, int cx, int cy, int utf8, FILE *fp)
+{
+	unsigned bits = cell_bits(cv, cx, cy, utf8), cp;
+
 	if (!utf8) {
 		fputc(bits ? '*' : ' ', fp);
 		return;
@@ -246,10 +255,15 @@ term_panel(struct ctl *c, const struct plot *p, const struct series *s,
 	printf("%s%s%s  last %s  min %s  max %s\n", out_style_on(c, OUT_BOLD),
 	    s->name, out_style_off(c, OUT_BOLD), last, bot, top);
 	for (r = 0; r < cv.rows; r++) {
+		int end = cv.cols;
+
+		/* No trailing blanks: stop after the last cell with a dot. */
+		while (end > 0 && cell_bits(&cv, end - 1, r, utf8) == 0)
+			end--;
 		printf("%*s %s", lw, r == 0 ? top : r == cv.rows - 1 ? bot : "",
 		    utf8 ? (r == 0 || r == cv.rows - 1 ? "\xe2\x94\xa4" :
 		    "\xe2\x94\x82") : "|");
-		for (x = 0; x < cv.cols; x++)
+		for (x = 0; x < end; x++)
 			put_cell(&cv, x, r, utf8, stdout);
 		fputc('\n', stdout);
 	}

@@ -14,6 +14,8 @@
 #include "coefctl.h"
 #include "limits.h"
 
+#define WATCH_PREFETCH	256	/* models whose names are asked up front */
+
 /* Set by the signal handler; the only state outside a stack frame. */
 static volatile sig_atomic_t watch_stop;
 
@@ -64,6 +66,67 @@ names_free(struct names *l)
 		free(l);
 		l = n;
 	}
+}
+
+/* A .get reply: keep it as the model's names if they were asked for;
+ * otherwise free it. Takes r. */
+static void
+keep_names(struct names *l, struct jr *r)
+{
+	const char *model = jr_str(jr_find(r, "model"));
+	struct names *nm;
+
+	if (model != NULL && jr_find(r, "features") != NULL &&
+	    (nm = names_find(l, model)) != NULL && nm->features == NULL) {
+		nm->features = r;
+		return;
+	}
+	jr_free(r);
+}
+
+/*
+ * Ask for the coefficient names before watching: of the named model (which
+ * must exist), or of the first WATCH_PREFETCH models listed. Models that
+ * appear later are asked for when their first update arrives. The .get
+ * requests are pipelined; their replies are read with the .watch reply.
+ */
+static int
+prefetch(struct conn *k, const char *name, struct names **names)
+{
+	char line[MODEL_NAME_MAX + 8];
+	const struct jr *ms;
+	struct names *nm;
+	struct jr *r = NULL;
+	size_t i;
+	int rc;
+
+	if (name != NULL) {
+		snprintf(line, sizeof(line), ".get %s", name);
+		if ((rc = conn_request(k, line, &r)) != 0)
+			return rc;
+		if ((nm = names_add(names, name)) == NULL) {
+			jr_free(r);
+			return CTL_EXIT_DATA;
+		}
+		nm->features = r;
+		nm->asked = 1;
+		return 0;
+	}
+	if ((rc = conn_request(k, ".list", &r)) != 0)
+		return rc;
+	ms = jr_find(r, "models");
+	for (i = 0; i < jr_len(ms) && i < WATCH_PREFETCH; i++) {
+		const char *m = jr_str(jr_find(jr_at(ms, i), "model"));
+
+		if (m == NULL || (nm = names_add(names, m)) == NULL)
+			continue;
+		nm->asked = 1;
+		snprintf(line, sizeof(line), ".get %s", m);
+		if ((rc = conn_send(k, line)) != 0)
+			break;
+	}
+	jr_free(r);
+	return rc;
 }
 
 static void
@@ -148,22 +211,30 @@ cmd_watch(struct ctl *c, int argc, char **argv)
 	}
 	if ((rc = conn_open(&k, c)) != 0)
 		return rc;
-	if (name != NULL) {
-		snprintf(line, sizeof(line), ".get %s", name);
-		if ((rc = conn_request(&k, line, &r)) != 0)
-			goto done;
-		if ((nm = names_add(&names, name)) != NULL) {
-			nm->features = r;
-			nm->asked = 1;
-			r = NULL;
-		}
-	}
+	if ((rc = prefetch(&k, name, &names)) != 0)
+		goto done;
 	snprintf(line, sizeof(line), ".watch %s", name != NULL ? name : "*");
 	if (every > 0)
 		snprintf(line + strlen(line), sizeof(line) - strlen(line),
 		    " every=%lu", every);
-	if ((rc = conn_request(&k, line, &r)) != 0)
+	if ((rc = conn_send(&k, line)) != 0)
 		goto done;
+	/* The .get replies come first, then the one to .watch. */
+	for (;;) {
+		if ((rc = conn_reply(&k, &r)) != 0)
+			goto done;
+		if (conn_is_error(r) != NULL &&
+		    jr_num(jr_find(r, "line")) == (double)k.line) {
+			conn_print_error(r);
+			rc = conn_error_exit(conn_is_error(r));
+			goto done;
+		}
+		if (jr_str(jr_find(r, "ok")) != NULL &&
+		    strcmp(jr_str(jr_find(r, "ok")), "watch") == 0)
+			break;
+		keep_names(names, r);
+		r = NULL;
+	}
 	jr_free(r);
 	r = NULL;
 
@@ -191,12 +262,8 @@ cmd_watch(struct ctl *c, int argc, char **argv)
 		model = jr_str(jr_find(r, "model"));
 		if (jr_find(r, "event") == NULL) {
 			/* A reply to one of our .get requests. */
-			if (model != NULL && jr_find(r, "features") != NULL &&
-			    (nm = names_find(names, model)) != NULL &&
-			    nm->features == NULL) {
-				nm->features = r;
-				r = NULL;
-			}
+			keep_names(names, r);
+			r = NULL;
 		} else if (c->json) {
 			out_jr(r, NULL);
 		} else if (strcmp(jr_str(jr_find(r, "event")) != NULL ?
