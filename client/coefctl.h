@@ -15,7 +15,7 @@
 #include "jread.h"
 #include "json.h"
 
-/* Exit codes (documented in coefctl --help, coefctl(1) and README.md). */
+/* Exit codes (documented in coefctl --help and coefctl(1)). */
 #define CTL_EXIT_OK		0
 #define CTL_EXIT_ALARM		1	/* check: an alarm is active */
 #define CTL_EXIT_USAGE		2	/* bad command line */
@@ -87,7 +87,7 @@ struct conn {
 	int		 tcp;
 	char		 where[300];	/* for messages */
 	char		*buf;		/* received bytes not yet returned */
-	size_t		 len, cap, off;
+	size_t		 len, cap, off, scan;
 	uint64_t	 line;		/* lines sent on this connection */
 	double		 timeout;	/* seconds; <= 0: wait for ever */
 	struct proto_msg *msg;		/* for conn_check */

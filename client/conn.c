@@ -263,7 +263,7 @@ conn_close(struct conn *k)
 	k->fd = -1;
 	free(k->buf);
 	k->buf = NULL;
-	k->len = k->cap = k->off = 0;
+	k->len = k->cap = k->off = k->scan = 0;
 	free(k->msg);
 	k->msg = NULL;
 }
@@ -274,24 +274,29 @@ static int
 fill(struct conn *k)
 {
 	ssize_t n;
+	size_t nc;
 	char *nb;
 
 	if (k->off > 0 && k->off == k->len)
-		k->off = k->len = 0;
+		k->off = k->len = k->scan = 0;
 	if (k->cap - k->len < CONN_READ) {
 		if (k->off > 0) {
 			memmove(k->buf, k->buf + k->off, k->len - k->off);
 			k->len -= k->off;
+			k->scan = k->scan > k->off ? k->scan - k->off : 0;
 			k->off = 0;
 		}
 		if (k->cap - k->len < CONN_READ) {
-			if ((nb = realloc(k->buf, k->cap + 2 * CONN_READ)) ==
-			    NULL) {
+			/* Geometric growth: long replies (a big .history)
+			 * are read in linear time. */
+			nc = k->cap * 2 > k->cap + 2 * CONN_READ ? k->cap * 2 :
+			    k->cap + 2 * CONN_READ;
+			if ((nb = realloc(k->buf, nc)) == NULL) {
 				ctl_err("out of memory");
 				return -1;
 			}
 			k->buf = nb;
-			k->cap += 2 * CONN_READ;
+			k->cap = nc;
 		}
 	}
 	n = read(k->fd, k->buf + k->len, k->cap - k->len - 1);
@@ -406,15 +411,19 @@ conn_line(struct conn *k, char **line, size_t *len, int wait_ms)
 	else if (wait_ms > 0)
 		deadline = mono_now() + wait_ms / 1000.0;
 	for (;;) {
-		if (k->len > k->off &&
-		    (nl = memchr(k->buf + k->off, '\n', k->len - k->off)) !=
+		/* k->scan: bytes from k->off already known to hold no LF. */
+		if (k->scan < k->off)
+			k->scan = k->off;
+		if (k->len > k->scan &&
+		    (nl = memchr(k->buf + k->scan, '\n', k->len - k->scan)) !=
 		    NULL) {
 			*nl = '\0';
 			*line = k->buf + k->off;
 			*len = (size_t)(nl - *line);
-			k->off = (size_t)(nl - k->buf) + 1;
+			k->off = k->scan = (size_t)(nl - k->buf) + 1;
 			return 1;
 		}
+		k->scan = k->len;
 		if ((rc = fill(k)) == 1)
 			continue;
 		if (rc == -1)

@@ -274,7 +274,10 @@ term_panel(struct ctl *c, const struct plot *p, const struct series *s,
 	x_label(p, p->n ? p->x[0] : 0, a, sizeof(a));
 	x_label(p, p->n ? p->x[p->n - 1] : 0, b, sizeof(b));
 	x = cv.cols + 1 - (int)strlen(a) - (int)strlen(b);
-	printf("%*s %s%*s%s\n", lw, "", a, x > 1 ? x : 1, "", b);
+	if (x >= 1)
+		printf("%*s %s%*s%s\n", lw, "", a, x, "", b);
+	else	/* too narrow to put them at the two ends */
+		printf("%*s %s to %s\n", lw, "", a, b);
 	free(cv.px);
 	return 0;
 }

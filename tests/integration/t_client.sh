@@ -511,6 +511,38 @@ assert b"Reset flow" in out, out
 assert n() == before > 0, (n(), before)
 ' "$COEFCTL" -s "$SOCK"
 
+py "feed on a terminal: a progress line (rows, rate, rejected) on stderr, then cleared" '
+import os, pty, subprocess, sys
+m, s = pty.openpty()
+p = subprocess.Popen(sys.argv[2:] + ["feed", "co2_kitchen", sys.argv[1]],
+                     stdout=subprocess.PIPE, stderr=s)
+os.close(s)
+err = b""
+while True:
+    try:
+        d = os.read(m, 4096)
+    except OSError:
+        break
+    if not d:
+        break
+    err += d
+out = p.communicate()[0]
+os.close(m)
+assert p.returncode == 0, (p.returncode, err)
+assert b"feed co2_kitchen: 1 rows" in err and b"/s  0 rejected" in err, err
+assert err.endswith(b"\r\033[K"), err
+assert out.startswith(b"co2_kitchen: 1 rows, 1 accepted"), out
+' "$TMP/in.csv" "$COEFCTL" -s "$SOCK"
+LC_ALL=C.UTF-8 run $C plot -n 4 --width 40 flow
+py "plot in a UTF-8 locale draws braille (U+2800 block) and box-drawing axes" '
+import sys
+t = open(sys.argv[1], encoding="utf-8").read()
+assert any(0x2801 <= ord(ch) <= 0x28ff for ch in t), t
+assert "\u2514" in t and "\u2524" in t, t
+chart = [l for l in t.splitlines() if set(l) & set("\u2502\u2524\u2514")]
+assert len(chart) == 4 * 7 and all(len(l) <= 40 for l in chart), chart
+' "$TMP/out"
+
 echo "t_client: man page and completion"
 if command -v mandoc >/dev/null 2>&1; then
 	run mandoc -Tlint -Wwarning client/coefctl.1
