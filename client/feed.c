@@ -25,6 +25,12 @@
 #define FEED_FLUSH	(256 * 1024)	/* bytes per write */
 #define FEED_KEEP_ERRS	5		/* errors kept per source */
 #define FEED_DRAW_S	0.1		/* progress redraw interval */
+/*
+ * CSV line numbers are kept for the last FEED_RING records sent. A refusal
+ * comes back once the daemon reached that record; the records in between
+ * sit in socket buffers (a few MB at most), far fewer than FEED_RING.
+ */
+#define FEED_RING	((size_t)1 << 20)
 
 struct feed_err {
 	unsigned long	 line;		/* CSV line */
@@ -51,7 +57,7 @@ struct feed {
 	char		*ob;		/* pending output */
 	size_t		 olen, ocap;
 	uint64_t	 first;		/* connection line of the first record */
-	unsigned long	*lmap;		/* record i -> CSV line */
+	unsigned long	*lmap;		/* record i -> CSV line (a ring) */
 	size_t		 nmap, mapcap;
 	unsigned long	 rows, sent, unparsable, rejected;
 	struct feed_err	 lerr[FEED_KEEP_ERRS], derr[FEED_KEEP_ERRS];
@@ -140,7 +146,8 @@ handle_reply(struct feed *f, const char *text, size_t len)
 		f->rejected++;
 		idx = line >= (double)f->first ? (uint64_t)line - f->first :
 		    UINT64_MAX;
-		keep_err(f->derr, &f->nderr, idx < f->nmap ? f->lmap[idx] : 0,
+		keep_err(f->derr, &f->nderr, idx < f->nmap &&
+		    f->nmap - idx <= f->mapcap ? f->lmap[idx % f->mapcap] : 0,
 		    why, d != NULL ? d : "");
 	}
 	jr_free(r);
@@ -423,7 +430,9 @@ add_row(struct feed *f)
 		pos += (size_t)n;
 	}
 	line[pos++] = '\n';
-	if (f->nmap == f->mapcap) {
+	/* Grow until FEED_RING, then wrap: every index below the capacity
+	 * sits at its own slot, so growing never moves an entry. */
+	if (f->nmap == f->mapcap && f->mapcap < FEED_RING) {
 		size_t nc = f->mapcap ? f->mapcap * 2 : 4096;
 
 		if ((nm = realloc(f->lmap, nc * sizeof(*nm))) == NULL)
@@ -433,7 +442,7 @@ add_row(struct feed *f)
 	}
 	if (out_append(f, line, pos) != 0)
 		return -1;
-	f->lmap[f->nmap++] = f->cv.lineno;
+	f->lmap[f->nmap++ % f->mapcap] = f->cv.lineno;
 	f->k.line++;
 	f->sent++;
 	return 0;

@@ -317,7 +317,7 @@ main(int argc, char **argv)
 		{ "version", no_argument, NULL, 'V' },
 		{ NULL, 0, NULL, 0 }
 	};
-	static char ubuf[4096];
+	char ubuf[4096];
 	const struct ctl_cmd *cmd = NULL;
 	const char *nc;
 	struct ctl c;

@@ -565,7 +565,41 @@ else
 	fail "bash is not installed"
 fi
 
+echo "t_client: a long feed, the daemon going away"
+# Many rows, several large writes, refusals far apart: the line numbers
+# reported must be the CSV's.
+"$PY" - "$TMP/many.csv" <<'EOF'
+import random, sys
+random.seed(5)
+with open(sys.argv[1], "w") as f:
+    f.write("raw,rh,ref\n")
+    for i in range(2, 30002):
+        raw = random.uniform(400, 900); rh = random.uniform(20, 80)
+        ref = 5 + 0.98 * raw + 0.1 * rh + random.gauss(0, 2)
+        if i in (7000, 29999):
+            f.write("%r,%r,x\n" % (raw, rh))
+        elif i in (15001, 15002, 28000):
+            f.write("1e200,%r,%r\n" % (rh, ref))
+        else:
+            f.write("%r,%r,%r\n" % (raw, rh, ref))
+EOF
+run $C --json feed co2_many "$TMP/many.csv"
+rc_is 6 "feed 30000 rows with refusals spread out"
+check "  counts and CSV line numbers of every refusal" [ "$(jget "$(cat "$TMP/out")" \
+    'd["rows"], d["accepted"], d["rejected"], d["unparsable"], [(e["line"], e["error"]) for e in d["errors"]]')" = \
+    "(30000, 29995, 3, 2, [(7000, 'unparsable'), (15001, 'term_non_finite'), (15002, 'term_non_finite'), (28000, 'term_non_finite'), (29999, 'unparsable')])" ]
+
+$C watch >"$TMP/w3" 2>"$TMP/w3.err" &
+W3=$!
+i=0
+while [ "$($C --json stats | "$PY" -c 'import json,sys; print(json.load(sys.stdin)["watchers"])')" != 1 ] && [ $i -lt 100 ]; do
+	sleep 0.05
+	i=$((i + 1))
+done
 stop_daemon
+wait $W3
+check "watch ends with exit 3 when the daemon goes away" [ $? -eq 3 ]
+check "  and says so" grep -q "closed the connection" "$TMP/w3.err"
 run $C list
 rc_is 3 "daemon stopped"
 check "  names the socket" grep -q "cannot reach coefd at $SOCK" "$TMP/err"
