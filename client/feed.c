@@ -101,6 +101,7 @@ progress(struct feed *f, int final)
 	if (final) {
 		if (f->bar)
 			fputs("\r\033[K", stderr);
+		f->bar = 0;
 		return;
 	}
 	if (now - f->drawn < FEED_DRAW_S)

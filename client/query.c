@@ -713,11 +713,64 @@ cmd_stats(struct ctl *c, int argc, char **argv)
 
 /* --- check --- */
 
+/* check: is model name nm among the operands (all when there are none)? */
+static int
+check_wanted(const char *nm, int argc, char **argv)
+{
+	int k;
+
+	if (optind == argc)
+		return 1;
+	for (k = optind; k < argc; k++)
+		if (strcmp(argv[k], nm) == 0)
+			return 1;
+	return 0;
+}
+
+/* check: does the .list reply have a model named nm? */
+static int
+check_listed(const struct jr *ms, const char *nm)
+{
+	size_t i;
+
+	for (i = 0; i < jr_len(ms); i++)
+		if (strcmp(nm, jr_str(jr_find(jr_at(ms, i), "model"))) == 0)
+			return 1;
+	return 0;
+}
+
+/* check: the daemon could not be asked; why is what conn_* printed. */
+static int
+check_unknown(struct ctl *c, const char *why)
+{
+	char line[512];
+	struct json j;
+
+	snprintf(line, sizeof(line), "%s", why != NULL && why[0] ? why :
+	    "no reply");
+	if (strncmp(line, "coefctl: ", 9) == 0)
+		memmove(line, line + 9, strlen(line + 9) + 1);
+	line[strcspn(line, "\n")] = '\0';
+	if (!c->json) {
+		printf("UNKNOWN: %s\n", line);
+	} else if (out_json_new(&j, 2048) == 0) {
+		json_obj_begin(&j);
+		json_key(&j, "status");
+		json_str(&j, "unknown");
+		json_key(&j, "message");
+		json_str(&j, line);
+		json_obj_end(&j);
+		out_json_print(&j);
+	}
+	return CTL_EXIT_CHECK_UNKNOWN;
+}
+
 /*
  * cmd_check: `coefctl check [NAME...]`: one summary line on stdout and
  * exit 0 (no alarm), 1 (an alarm is active) or 2 (a named model does not
  * exist, or the daemon cannot be reached or answers nonsense). Nothing
- * else is printed (diagnostics go into the line).
+ * else is printed: what the connection layer would say on stderr goes
+ * into the line instead (stderr is pointed at a memory stream meanwhile).
  */
 int
 cmd_check(struct ctl *c, int argc, char **argv)
@@ -725,21 +778,19 @@ cmd_check(struct ctl *c, int argc, char **argv)
 	const struct jr *ms;
 	struct jr *r = NULL;
 	struct json j;
-	char *msg = NULL;
-	size_t mcap, i;
-	int rc, st, k, nalarm = 0, nmissing = 0, nmodels = 0, status;
-	FILE *saved;
+	char *diag = NULL, *alarms = NULL, *missing = NULL;
+	size_t dlen, alen, mlen, i;
+	int rc, st, k, nalarm = 0, nmissing = 0, nmodels = 0;
+	FILE *saved, *af, *mf;
 
 	if ((st = plain_opts(c, argc, argv)) != 0)
 		return ctl_done(st);
 	for (k = optind; k < argc; k++)
 		if ((rc = ctl_model_arg(c, argv[k])) != 0)
 			return rc;
-	/* Diagnostics of the connection go into the summary line. */
 	saved = stderr;
 	fflush(stderr);
-	stderr = open_memstream(&msg, &mcap);
-	if (stderr == NULL)
+	if ((stderr = open_memstream(&diag, &dlen)) == NULL)
 		stderr = saved;
 	rc = conn_ask(c, ".list", &r);
 	if (stderr != saved) {
@@ -747,83 +798,54 @@ cmd_check(struct ctl *c, int argc, char **argv)
 		stderr = saved;
 	}
 	if (rc != 0) {
-		char *p;
-
-		/* First line of what conn_* printed, less the prefix. */
-		p = msg != NULL ? msg : "no reply";
-		if (strncmp(p, "coefctl: ", 9) == 0)
-			p += 9;
-		p[strcspn(p, "\n")] = '\0';
-		if (c->json) {
-			if (out_json_new(&j, 1024) == 0) {
-				json_obj_begin(&j);
-				json_key(&j, "status");
-				json_str(&j, "unknown");
-				json_key(&j, "message");
-				json_str(&j, p);
-				json_obj_end(&j);
-				out_json_print(&j);
-			}
-		} else {
-			printf("UNKNOWN: %s\n", p);
-		}
-		free(msg);
-		return CTL_EXIT_CHECK_UNKNOWN;
+		rc = check_unknown(c, diag);
+		free(diag);
+		return rc;
 	}
-	free(msg);
+	free(diag);
 	ms = jr_find(r, "models");
-	if (out_json_new(&j, 4096 + jr_len(ms) * 160) != 0) {
+	af = open_memstream(&alarms, &alen);
+	mf = open_memstream(&missing, &mlen);
+	if (af == NULL || mf == NULL ||
+	    out_json_new(&j, 4096 + jr_len(ms) * 160 + (size_t)argc * 80) !=
+	    0) {
+		if (af != NULL)
+			fclose(af);
+		if (mf != NULL)
+			fclose(mf);
+		free(alarms);
+		free(missing);
 		jr_free(r);
-		return CTL_EXIT_CHECK_UNKNOWN;
+		return check_unknown(c, "out of memory");
 	}
-	/* The text line is built alongside the JSON document. */
-	msg = NULL;
-	saved = open_memstream(&msg, &mcap);
 	json_obj_begin(&j);
 	json_key(&j, "alarms");
 	json_obj_begin(&j);
 	for (i = 0; i < jr_len(ms); i++) {
 		const struct jr *m = jr_at(ms, i);
 		const char *nm = jr_str(jr_find(m, "model"));
-		int want = optind == argc;
 		char al[200];
 
-		for (k = optind; k < argc && !want; k++)
-			want = strcmp(argv[k], nm) == 0;
-		if (!want)
+		if (nm == NULL || !check_wanted(nm, argc, argv))
 			continue;
 		nmodels++;
 		if (jr_len(jr_find(m, "alarms")) == 0)
 			continue;
 		json_key(&j, nm);
 		jr_write(&j, jr_find(m, "alarms"), NULL);
-		if (saved != NULL)
-			fprintf(saved, "%s%s (%s)", nalarm ? ", " : "", nm,
-			    join_strs(jr_find(m, "alarms"), ",", al,
-			    sizeof(al)));
-		nalarm++;
+		fprintf(af, "%s%s (%s)", nalarm++ ? ", " : "", nm,
+		    join_strs(jr_find(m, "alarms"), ",", al, sizeof(al)));
 	}
 	json_obj_end(&j);
 	json_key(&j, "missing");
 	json_arr_begin(&j);
 	for (k = optind; k < argc; k++) {
-		int found = 0;
-
-		for (i = 0; i < jr_len(ms) && !found; i++)
-			found = strcmp(argv[k], jr_str(jr_find(jr_at(ms, i),
-			    "model"))) == 0;
-		if (found)
+		if (check_listed(ms, argv[k]))
 			continue;
 		json_str(&j, argv[k]);
-		nmissing++;
+		fprintf(mf, "%s%s", nmissing++ ? ", " : "", argv[k]);
 	}
 	json_arr_end(&j);
-	if (saved != NULL) {
-		fclose(saved);
-		saved = NULL;
-	}
-	status = nmissing ? CTL_EXIT_CHECK_UNKNOWN : nalarm ? CTL_EXIT_ALARM :
-	    CTL_EXIT_OK;
 	json_key(&j, "status");
 	json_str(&j, nmissing ? "unknown" : nalarm ? "alarm" : "ok");
 	json_key(&j, "models");
@@ -831,33 +853,24 @@ cmd_check(struct ctl *c, int argc, char **argv)
 	json_key(&j, "models_in_alarm");
 	json_int(&j, nalarm);
 	json_obj_end(&j);
+	fclose(af);
+	fclose(mf);
 	if (c->json) {
 		out_json_print(&j);
 	} else {
 		free(j.buf);
-		if (nmissing) {
-			printf("UNKNOWN: no model");
-			for (k = optind, i = 0; k < argc; k++) {
-				size_t m;
-				int found = 0;
-
-				for (m = 0; m < jr_len(ms) && !found; m++)
-					found = strcmp(argv[k], jr_str(jr_find(
-					    jr_at(ms, m), "model"))) == 0;
-				if (!found)
-					printf("%s %s", i++ ? "," : "",
-					    argv[k]);
-			}
-			printf("\n");
-		} else if (nalarm) {
+		if (nmissing)
+			printf("UNKNOWN: no model %s\n", missing);
+		else if (nalarm)
 			printf("ALARM: %d of %d model%s: %s\n", nalarm, nmodels,
-			    nmodels == 1 ? "" : "s", msg != NULL ? msg : "");
-		} else {
+			    nmodels == 1 ? "" : "s", alarms);
+		else
 			printf("OK: %d model%s, no alarm\n", nmodels,
 			    nmodels == 1 ? "" : "s");
-		}
 	}
-	free(msg);
+	free(alarms);
+	free(missing);
 	jr_free(r);
-	return status;
+	return nmissing ? CTL_EXIT_CHECK_UNKNOWN : nalarm ? CTL_EXIT_ALARM :
+	    CTL_EXIT_OK;
 }
