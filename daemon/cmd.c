@@ -302,11 +302,15 @@ cmd_get(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
 	const char *names[RLS_MAX_P];
 	double th[RLS_MAX_P], se[RLS_MAX_P], lo[RLS_MAX_P], hi[RLS_MAX_P];
 	double ref[RLS_MAX_P];
+	const char *fields[PROTO_MAX_VALUES];
+	int f;
 
 	(void)s;
 	(void)now;
 	if ((e = need_model(c, msg, j)) == NULL)
 		return 1;
+	for (f = 0; f < e->nfields && f < PROTO_MAX_VALUES; f++)
+		fields[f] = e->fields[f];
 	memset(&rep, 0, sizeof(rep));
 	rep.theta = th;
 	rep.se = se;
@@ -324,6 +328,9 @@ cmd_get(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
 	rm.rep = &rep;
 	rm.reference = ref;
 	rm.epoch_times = 1;
+	rm.fields = fields;
+	rm.nfields = f;
+	rm.target = e->fields[e->nfields];
 	render_model(j, &rm);
 	return 1;
 }

@@ -6,7 +6,9 @@
  *   n_gated, n_eff, weight, lambda, tau, memory, rss, mse, nrss, r2,
  *   r2_pred, sigma, dof, rank, cond, sigma_ref, alarms (names of the
  *   detectors in alarm), detectors {name: {on, changed, value}}, frozen,
- *   reference (null or {coef, source, pinned, drift_d2, drift_q}), last_t.
+ *   reference (null or {coef, source, pinned, drift_d2, drift_q}), last_t,
+ *   and, when the caller names them, fields (the raw fields records carry,
+ *   in positional order) and target (the target field's name).
  * Non-finite numbers are written as null (json_num does that).
  */
 #include <math.h>
@@ -208,6 +210,15 @@ render_model(struct json *j, const struct render_model *r)
 		time_value(j, m->last_t, r->epoch_times);
 	else
 		json_null(j);
+	if (r->fields != NULL) {
+		json_key(j, "fields");
+		json_arr_begin(j);
+		for (d = 0; d < r->nfields; d++)
+			json_str(j, r->fields[d]);
+		json_arr_end(j);
+		json_key(j, "target");
+		json_str(j, r->target != NULL ? r->target : "");
+	}
 	json_obj_end(j);
 	return json_finish(j);
 }

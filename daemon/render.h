@@ -17,6 +17,9 @@ struct render_model {
 	const struct model_report *rep;		/* in the user's units */
 	const double		 *reference;	/* pinned ref, user's units */
 	int			  epoch_times;	/* times are Unix seconds */
+	const char *const	 *fields;	/* raw fields, or NULL: no keys */
+	int			  nfields;
+	const char		 *target;	/* target field name */
 };
 
 /* render_model: write the model object (keys listed in render.c). */

@@ -22,6 +22,7 @@ main(void)
 	srunner_add_suite(sr, alarm_suite());
 	srunner_add_suite(sr, terms_suite());
 	srunner_add_suite(sr, json_suite());
+	srunner_add_suite(sr, jread_suite());
 	srunner_add_suite(sr, proto_suite());
 	srunner_add_suite(sr, model_suite());
 	srunner_add_suite(sr, nist_suite());

@@ -9,6 +9,7 @@ Suite *rls_suite(void);
 Suite *stats_suite(void);
 Suite *alarm_suite(void);
 Suite *terms_suite(void);
+Suite *jread_suite(void);
 Suite *json_suite(void);
 Suite *proto_suite(void);
 Suite *model_suite(void);
