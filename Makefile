@@ -147,6 +147,11 @@ san: deps
 integration: deps
 	@$(MAKE) --no-print-directory _integration
 
+# The greenhouse demo (tests/demo/run.sh): builds, runs, checks its outcome.
+demo: deps
+	@$(MAKE) --no-print-directory _all
+	@sh tests/demo/run.sh $(BUILD)
+
 deps:
 	@sh .ci/deps
 
