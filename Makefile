@@ -3,7 +3,7 @@
 # project's own flags are composed into FINAL_CFLAGS / FINAL_LDFLAGS.
 #
 # Public targets: all (default), check, san, valgrind, fuzz, fuzz-ci,
-# integration, demo, bench, clean, deps. The top-level targets first run the dependency step
+# integration, demo, bench, install, uninstall, clean, deps. The top-level targets first run the dependency step
 # (.ci/deps), then re-enter make so pkg-config sees the installed packages.
 
 CC      ?= cc
@@ -35,12 +35,13 @@ TEST_CFLAGS = $(shell pkg-config --cflags $(PKGS_TEST))
 TEST_LIBS   = $(shell pkg-config --libs $(PKGS_TEST))
 
 FINAL_CFLAGS  = -std=gnu11 $(OPT) $(WARN) $(HARDEN) -MMD -MP -Idaemon \
-                $(CFLAGS) $(SAN)
+                $(PATH_DEFS) $(CFLAGS) $(SAN)
 FINAL_LDFLAGS = $(HARDEN_LD) $(LDFLAGS) $(SAN)
 
 # The pure engine: no I/O, no libuv, no globals. Built into libcore.a, which
 # the daemon, the client and the unit tests link. Add new pure modules here.
 CORE_SRC = \
+	daemon/activate.c \
 	daemon/alarm.c \
 	daemon/cmd.c \
 	daemon/conf.c \
@@ -58,17 +59,32 @@ CORE_SRC = \
 DAEMON_SRC = \
 	daemon/log.c \
 	daemon/main.c \
-	daemon/net.c
+	daemon/net.c \
+	daemon/notify.c
 CLIENT_SRC = \
+	client/admin.c \
+	client/conn.c \
 	client/csv.c \
+	client/feed.c \
 	client/fit.c \
-	client/main.c
-# Unit tests: one check_<module>.c per pure module plus the runner.
+	client/jread.c \
+	client/main.c \
+	client/out.c \
+	client/plot.c \
+	client/query.c \
+	client/watch.c
+# Unit tests: one check_<module>.c per pure module plus the runner. The
+# client's pure JSON reader is compiled in here too (it is not daemon code,
+# so it stays out of libcore.a).
 TEST_SRC = \
+	client/jread.c \
+	tests/check_activate.c \
 	tests/check_alarm.c \
 	tests/check_conf.c \
+	tests/check_confman.c \
 	tests/check_dist.c \
 	tests/check_err.c \
+	tests/check_jread.c \
 	tests/check_json.c \
 	tests/check_main.c \
 	tests/check_model.c \
@@ -94,8 +110,31 @@ UNITS   = $(BUILD)/check_unit
 
 export OPENBLAS_NUM_THREADS = 1
 
+# Installation directories (GNU names). sysconfdir and localstatedir
+# default to /etc and /var, not under PREFIX: the unit's
+# ConfigurationDirectory= and StateDirectory= are always /etc/coefd and
+# /var/lib/coefd, and the daemon's built-in defaults must agree with them.
+# Both are compiled in (the default config path, the default state_dir)
+# and written into the unit, the man pages and the example config; DESTDIR
+# is used only when copying and never ends up in a file.
+PREFIX        ?= /usr/local
+prefix        ?= $(PREFIX)
+exec_prefix   ?= $(prefix)
+bindir        ?= $(exec_prefix)/bin
+sbindir       ?= $(exec_prefix)/sbin
+sysconfdir    ?= /etc
+localstatedir ?= /var
+datarootdir   ?= $(prefix)/share
+mandir        ?= $(datarootdir)/man
+bashcompdir   ?= $(datarootdir)/bash-completion/completions
+# $(prefix)/lib/... is on systemd's search paths for /usr and /usr/local.
+systemdsystemunitdir ?= $(prefix)/lib/systemd/system
+sysusersdir   ?= $(prefix)/lib/sysusers.d
+INSTALL       ?= install
+
 .PHONY: all check san valgrind fuzz fuzz-ci integration demo bench clean \
-        deps _all _check _unit _integration _valgrind _fuzz
+        deps install uninstall _all _check _unit _integration _dist \
+        _valgrind _fuzz FORCE
 
 all: deps
 	@$(MAKE) --no-print-directory _all
@@ -169,10 +208,15 @@ _fuzz: $(FUZZ_TARGETS:%=$(BUILD)/fuzz_%)
 $(BUILD)/fuzz_%: $(BUILD)/tests/fuzz/fuzz_%.o $(LIBCORE)
 	$(CC) $(FINAL_LDFLAGS) -fsanitize=fuzzer -o $@ $< $(LIBCORE) $(CORE_LIBS)
 
+# The greenhouse demo (tests/demo/run.sh): builds, runs, checks its outcome.
+demo: deps
+	@$(MAKE) --no-print-directory _all
+	@sh tests/demo/run.sh $(BUILD)
+
 deps:
 	@sh .ci/deps
 
-_all: $(COEFD) $(COEFCTL)
+_all: $(COEFD) $(COEFCTL) _dist
 
 _check: _all $(UNITS)
 	@$(MAKE) --no-print-directory _unit
@@ -211,7 +255,124 @@ $(BUILD)/client/%.o: client/%.c
 
 $(BUILD)/tests/%.o: tests/%.c
 	@mkdir -p $(@D)
-	$(CC) $(FINAL_CFLAGS) $(CORE_CFLAGS) $(TEST_CFLAGS) -c -o $@ $<
+	$(CC) $(FINAL_CFLAGS) -Iclient $(CORE_CFLAGS) $(TEST_CFLAGS) -c -o $@ $<
+
+# --- paths compiled in and generated files ---
+
+# The objects that embed a path are rebuilt when a path changes: the stamp
+# is rewritten only when its content differs.
+PATHS_STAMP = $(BUILD)/paths.stamp
+PATH_OBJ = $(BUILD)/daemon/main.o $(BUILD)/daemon/conf.o \
+           $(BUILD)/tests/check_conf.o
+$(PATH_OBJ): PATH_DEFS = -DSYSCONFDIR='"$(sysconfdir)"' \
+                         -DLOCALSTATEDIR='"$(localstatedir)"'
+$(PATH_OBJ): $(PATHS_STAMP)
+
+$(PATHS_STAMP): FORCE
+	@mkdir -p $(@D)
+	@printf '%s\n' '$(bindir)' '$(sbindir)' '$(sysconfdir)' \
+	    '$(localstatedir)' >$@.tmp
+	@if cmp -s $@.tmp $@; then rm -f $@.tmp; else mv $@.tmp $@; fi
+
+# Default paths in the sources become the configured ones.
+PATH_SED = sed -e 's|/etc/coefd|$(sysconfdir)/coefd|g' \
+               -e 's|/var/lib/coefd|$(localstatedir)/lib/coefd|g'
+ifeq ($(sysconfdir),/etc)
+UNIT_CONF = -e 's|@CONFFILE@|$${CONFIGURATION_DIRECTORY}/coefd.conf|'
+else
+UNIT_CONF = -e 's|@CONFFILE@|$(sysconfdir)/coefd/coefd.conf|' \
+            -e '/^ConfigurationDirectory=/d'
+endif
+ifeq ($(localstatedir),/var)
+UNIT_STATE =
+else
+UNIT_STATE = -e 's|^StateDirectory=coefd$$|ReadWritePaths=$(localstatedir)/lib/coefd|' \
+             -e '/^StateDirectoryMode=/d'
+endif
+
+DIST = $(BUILD)/dist
+DIST_FILES = $(DIST)/coefd.service $(DIST)/coefd.socket \
+             $(DIST)/coefd.sysusers $(DIST)/coefd.conf $(DIST)/coefd.8 \
+             $(DIST)/coefd.conf.5
+_dist: $(DIST_FILES)
+
+$(DIST)/coefd.service: systemd/coefd.service.in $(PATHS_STAMP)
+	@mkdir -p $(@D)
+	sed -e 's|@SBINDIR@|$(sbindir)|g' -e 's|@BINDIR@|$(bindir)|g' \
+	    $(UNIT_CONF) $(UNIT_STATE) systemd/coefd.service.in >$@
+$(DIST)/coefd.socket: systemd/coefd.socket
+	@mkdir -p $(@D)
+	cp systemd/coefd.socket $@
+$(DIST)/coefd.sysusers: systemd/coefd.sysusers
+	@mkdir -p $(@D)
+	cp systemd/coefd.sysusers $@
+$(DIST)/coefd.conf: conf/coefd.conf $(PATHS_STAMP)
+	@mkdir -p $(@D)
+	$(PATH_SED) conf/coefd.conf >$@
+$(DIST)/coefd.8: daemon/coefd.8 $(PATHS_STAMP)
+	@mkdir -p $(@D)
+	$(PATH_SED) daemon/coefd.8 >$@
+$(DIST)/coefd.conf.5: daemon/coefd.conf.5 $(PATHS_STAMP)
+	@mkdir -p $(@D)
+	$(PATH_SED) daemon/coefd.conf.5 >$@
+
+# --- install / uninstall ---
+
+# The client's manual page and completion are installed when present.
+CLIENT_MAN  = $(wildcard client/coefctl.1)
+CLIENT_COMP = $(wildcard client/coefctl.bash)
+
+install: all
+	$(INSTALL) -d $(DESTDIR)$(sbindir) $(DESTDIR)$(bindir) \
+	    $(DESTDIR)$(sysconfdir)/coefd $(DESTDIR)$(mandir)/man8 \
+	    $(DESTDIR)$(mandir)/man5 $(DESTDIR)$(systemdsystemunitdir) \
+	    $(DESTDIR)$(sysusersdir) $(DESTDIR)$(bashcompdir)
+	$(INSTALL) -m 0755 $(COEFD) $(DESTDIR)$(sbindir)/coefd
+	$(INSTALL) -m 0755 $(COEFCTL) $(DESTDIR)$(bindir)/coefctl
+	@# An existing configuration is the administrator's: never replaced.
+	@if [ -e $(DESTDIR)$(sysconfdir)/coefd/coefd.conf ]; then \
+	    echo "keeping existing $(DESTDIR)$(sysconfdir)/coefd/coefd.conf"; \
+	else \
+	    echo "$(INSTALL) -m 0644 $(DIST)/coefd.conf $(DESTDIR)$(sysconfdir)/coefd/coefd.conf"; \
+	    $(INSTALL) -m 0644 $(DIST)/coefd.conf \
+	        $(DESTDIR)$(sysconfdir)/coefd/coefd.conf; \
+	fi
+	$(INSTALL) -m 0644 $(DIST)/coefd.8 $(DESTDIR)$(mandir)/man8/coefd.8
+	$(INSTALL) -m 0644 $(DIST)/coefd.conf.5 \
+	    $(DESTDIR)$(mandir)/man5/coefd.conf.5
+	$(INSTALL) -m 0644 $(DIST)/coefd.service $(DIST)/coefd.socket \
+	    $(DESTDIR)$(systemdsystemunitdir)
+	$(INSTALL) -m 0644 $(DIST)/coefd.sysusers \
+	    $(DESTDIR)$(sysusersdir)/coefd.conf
+	$(INSTALL) -m 0644 daemon/coefd.bash $(DESTDIR)$(bashcompdir)/coefd
+ifneq ($(CLIENT_MAN),)
+	$(INSTALL) -d $(DESTDIR)$(mandir)/man1
+	$(INSTALL) -m 0644 $(CLIENT_MAN) $(DESTDIR)$(mandir)/man1/coefctl.1
+endif
+ifneq ($(CLIENT_COMP),)
+	$(INSTALL) -m 0644 $(CLIENT_COMP) $(DESTDIR)$(bashcompdir)/coefctl
+endif
+ifneq ($(localstatedir),/var)
+	$(INSTALL) -d -m 0750 $(DESTDIR)$(localstatedir)/lib/coefd
+endif
+
+# Removes what install put there. The configuration goes only when it is
+# still the unmodified example; the state directory is never removed.
+uninstall:
+	rm -f $(DESTDIR)$(sbindir)/coefd $(DESTDIR)$(bindir)/coefctl \
+	    $(DESTDIR)$(mandir)/man8/coefd.8 \
+	    $(DESTDIR)$(mandir)/man5/coefd.conf.5 \
+	    $(DESTDIR)$(mandir)/man1/coefctl.1 \
+	    $(DESTDIR)$(systemdsystemunitdir)/coefd.service \
+	    $(DESTDIR)$(systemdsystemunitdir)/coefd.socket \
+	    $(DESTDIR)$(sysusersdir)/coefd.conf \
+	    $(DESTDIR)$(bashcompdir)/coefd $(DESTDIR)$(bashcompdir)/coefctl
+	@f=$(DESTDIR)$(sysconfdir)/coefd/coefd.conf; \
+	if [ -e "$$f" ] && ! $(PATH_SED) conf/coefd.conf | cmp -s - "$$f"; then \
+	    echo "keeping modified $$f"; \
+	else \
+	    rm -f "$$f"; rmdir $(DESTDIR)$(sysconfdir)/coefd 2>/dev/null || :; \
+	fi
 
 clean:
 	rm -rf build build-san build-fuzz

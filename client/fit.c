@@ -104,7 +104,7 @@ parse_args(int argc, char **argv, struct fit_args *a)
 	a->lambda = 1;
 	a->intercept = 1;
 	a->gate = INFINITY;
-	optind = 1;
+	optind = 0;	/* glibc: re-initialise (argument order too) */
 	while ((ch = getopt_long(argc, argv, "h", lo, NULL)) != -1) {
 		switch (ch) {
 		case 'l':

@@ -241,19 +241,6 @@ cmd_sync(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
 	return 1;
 }
 
-static void
-alarm_list(struct json *j, const struct model *m)
-{
-	int d;
-
-	json_key(j, "alarms");
-	json_arr_begin(j);
-	for (d = 0; d < ALARM_NDET; d++)
-		if (m->al.st[d].on)
-			json_str(j, alarm_name((enum alarm_det)d));
-	json_arr_end(j);
-}
-
 static int
 cmd_list(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
     double now, struct json *j)
@@ -291,7 +278,7 @@ cmd_list(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
 		json_num(j, rep.s.r2_pred);
 		json_key(j, "sigma");
 		json_num(j, rep.s.sigma);
-		alarm_list(j, m);
+		render_alarms(j, m);
 		json_key(j, "frozen");
 		json_bool(j, m->frozen);
 		json_key(j, "stale");
@@ -316,11 +303,15 @@ cmd_get(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
 	const char *names[RLS_MAX_P];
 	double th[RLS_MAX_P], se[RLS_MAX_P], lo[RLS_MAX_P], hi[RLS_MAX_P];
 	double ref[RLS_MAX_P];
+	const char *fields[PROTO_MAX_VALUES];
+	int f;
 
 	(void)s;
 	(void)now;
 	if ((e = need_model(c, msg, j)) == NULL)
 		return 1;
+	for (f = 0; f < e->nfields && f < PROTO_MAX_VALUES; f++)
+		fields[f] = e->fields[f];
 	memset(&rep, 0, sizeof(rep));
 	rep.theta = th;
 	rep.se = se;
@@ -338,6 +329,9 @@ cmd_get(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
 	rm.rep = &rep;
 	rm.reference = ref;
 	rm.epoch_times = 1;
+	rm.fields = fields;
+	rm.nfields = f;
+	rm.target = e->fields[e->nfields];
 	render_model(j, &rm);
 	return 1;
 }

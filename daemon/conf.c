@@ -22,6 +22,14 @@
 #include "proto.h"
 #include "rls.h"
 
+/* make sets this from localstatedir (default /var: systemd's
+ * StateDirectory= is always below /var/lib). */
+#ifndef LOCALSTATEDIR
+#define LOCALSTATEDIR	"/var"
+#endif
+_Static_assert(sizeof(LOCALSTATEDIR "/lib/coefd") <= CONF_PATH_MAX + 1,
+    "localstatedir too long for state_dir");
+
 /* The range texts below spell these limits out. */
 _Static_assert(TERMS_MAX == 255, "update the max_features range text");
 _Static_assert(PROTO_LINE_MAX == 1048576, "update the max_line range text");
@@ -709,7 +717,7 @@ conf_daemon_default(struct conf_daemon *d)
 	memset(d, 0, sizeof(*d));
 	strcpy(d->socket, "/run/coefd/coefd.sock");
 	d->socket_mode = 0660;
-	strcpy(d->state_dir, "/var/lib/coefd");
+	strcpy(d->state_dir, LOCALSTATEDIR "/lib/coefd");
 	d->checkpoint_every = 300;
 	d->journal = CONF_JOURNAL_INTERVAL;
 	d->journal_every = 0.2;

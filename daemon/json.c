@@ -133,11 +133,12 @@ scalar(struct json *j, const char *s, size_t n)
 }
 
 /*
- * Length of the valid UTF-8 sequence (RFC 3629 / Unicode table 3-7) at
- * s[0..n), or 0 when the bytes there are not one.
+ * json_utf8_seq: length of the valid UTF-8 sequence (RFC 3629 / Unicode
+ * table 3-7) at s[0..n) (n >= 1), or 0 when the bytes there are not one.
+ * Shared with the protocol reader, which rejects what this refuses.
  */
-static size_t
-utf8_seq(const unsigned char *s, size_t n)
+size_t
+json_utf8_seq(const unsigned char *s, size_t n)
 {
 	unsigned char c = s[0];
 
@@ -213,7 +214,7 @@ put_string(struct json *j, const char *s, size_t n)
 				return -1;
 			put(j, esc, 6);
 			i++;
-		} else if ((k = utf8_seq(p + i, n - i)) != 0) {
+		} else if ((k = json_utf8_seq(p + i, n - i)) != 0) {
 			if (!room(j, k))
 				return -1;
 			put(j, s + i, k);

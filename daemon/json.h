@@ -61,6 +61,9 @@ int	json_num(struct json *j, double v);
 int	json_bool(struct json *j, int v);
 int	json_null(struct json *j);
 
+/* Length of the valid UTF-8 sequence at s[0..n), or 0 (RFC 3629). */
+size_t	json_utf8_seq(const unsigned char *s, size_t n);
+
 /* Shortest "%.{15,16,17}g" text that reads back to v; NUL-terminated. */
 int	json_format_double(char *out, size_t outlen, double v);
 

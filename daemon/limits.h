@@ -33,4 +33,8 @@
 #define CONF_ADMIN_USERS_MAX	32	/* entries in admin_users */
 #define CONF_USER_NAME_MAX	32	/* bytes in a user name (useradd's limit) */
 
+/* Sockets passed by a service manager (daemon/activate.h). */
+#define ACTIVATE_FDS_MAX	16	/* inherited sockets accepted */
+#define ACTIVATE_NAME_MAX	255	/* bytes in one LISTEN_FDNAMES name */
+
 #endif

@@ -12,17 +12,21 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <sys/socket.h>
 #include <sys/stat.h>
+#include <sys/un.h>
 #include <time.h>
 #include <unistd.h>
 
 #include <uv.h>
 
+#include "activate.h"
 #include "cmd.h"
 #include "conf.h"
 #include "err.h"
 #include "log.h"
 #include "net.h"
+#include "notify.h"
 #include "registry.h"
 
 #ifndef COEFD_VERSION
@@ -34,6 +38,7 @@
 #define DEFAULT_CONF	SYSCONFDIR "/coefd/coefd.conf"
 #define EXIT_CONFIG	78	/* EX_CONFIG: systemd will not restart */
 #define SHUTDOWN_MS	5000
+#define STATUS_MS	2000	/* STATUS= refresh for the service manager */
 
 struct daemon {
 	uv_loop_t	 loop;
@@ -50,6 +55,17 @@ struct daemon {
 	uv_signal_t	 sig_hup, sig_term, sig_int;
 	int		 stopping;
 	int		 verbose;
+	/* Service manager: notifications, watchdog, inherited sockets. */
+	struct notify	 nfy;
+	int		 nfy_failed;	/* a send failed (logged once) */
+	uv_timer_t	 status_timer, wd_timer;
+	uint64_t	 wd_usec;	/* 0: no watchdog */
+	uint64_t	 rate_records;	/* records counted at rate_ms */
+	uint64_t	 rate_ms;
+	double		 rate;		/* records/s over the last period */
+	char		 reload_err[300];	/* "" or the last failure */
+	int		 fd_unix, fd_tcp;	/* inherited, or -1 */
+	char		 unix_inherited[128];	/* its path, or "" */
 };
 
 struct bcast {
@@ -224,8 +240,11 @@ net_opts_of(const struct daemon *d, const struct conf *c, struct net_opts *o)
 	o->max_conns_per_uid = (unsigned)c->d.max_connections_per_uid;
 	o->idle_ms = (uint64_t)(c->d.idle_timeout * 1000);
 	o->stuck_ms = (uint64_t)(c->d.stuck_timeout * 1000);
-	o->fd_unix = -1;
-	o->fd_tcp = -1;
+	o->fd_unix = d->fd_unix;
+	o->fd_tcp = d->fd_tcp;
+	if (d->fd_unix >= 0)
+		o->unix_path = d->unix_inherited[0] != '\0' ?
+		    d->unix_inherited : NULL;
 }
 
 static int
@@ -302,6 +321,165 @@ hook_stats(void *arg, struct json *j)
 	json_uint(j, rss_bytes());
 }
 
+/* --- service manager: notifications, status, watchdog, sockets --- */
+
+static void
+svc_notify(struct daemon *d, const char *msg)
+{
+	if (notify_send(&d->nfy, msg) == 0 || d->nfy_failed)
+		return;
+	d->nfy_failed = 1;	/* once: a gone manager must not flood */
+	log_warn("notify socket: cannot send (further failures not logged)");
+}
+
+static uint64_t
+records_seen(const struct daemon *d)
+{
+	return d->cmd.st.used + d->cmd.st.gated + d->cmd.st.primed +
+	    d->cmd.st.frozen;
+}
+
+/* "READY=1\n" etc. (or "") followed by STATUS= with the one-line summary. */
+static void
+svc_status(struct daemon *d, const char *head)
+{
+	char msg[512];
+	size_t nm = registry_count(d->reg);
+
+	snprintf(msg, sizeof(msg), "%sSTATUS=%zu model%s, %.4g records/s, "
+	    "%llu alarm%s raised%s%s", head, nm, nm == 1 ? "" : "s", d->rate,
+	    (unsigned long long)d->cmd.st.alarms_raised,
+	    d->cmd.st.alarms_raised == 1 ? "" : "s",
+	    d->reload_err[0] != '\0' ? "; last reload failed: " : "",
+	    d->reload_err);
+	svc_notify(d, msg);
+}
+
+static void
+status_cb(uv_timer_t *t)
+{
+	struct daemon *d = t->data;
+	uint64_t now = uv_now(&d->loop), rec = records_seen(d);
+
+	if (now > d->rate_ms)
+		d->rate = (double)(rec - d->rate_records) * 1000.0 /
+		    (double)(now - d->rate_ms);
+	d->rate_records = rec;
+	d->rate_ms = now;
+	if (!d->stopping)
+		svc_status(d, "");
+}
+
+/* Runs on the loop: if the loop wedges, the pings stop and the manager
+ * restarts us. */
+static void
+watchdog_cb(uv_timer_t *t)
+{
+	struct daemon *d = t->data;
+
+	svc_notify(d, "WATCHDOG=1");
+}
+
+/* A repeating timer on the loop calling cb every ms; fatal on failure
+ * (only called before the loop runs). */
+static void
+start_timer(struct daemon *d, uv_timer_t *t, uv_timer_cb cb, uint64_t first,
+    uint64_t ms, const char *what)
+{
+	int rc;
+
+	if ((rc = uv_timer_init(&d->loop, t)) != 0)
+		fatalx("%s timer: %s", what, uv_strerror(rc));
+	t->data = d;
+	if ((rc = uv_timer_start(t, cb, first, ms)) != 0)
+		fatalx("%s timer: %s", what, uv_strerror(rc));
+}
+
+/* Timers for STATUS= and WATCHDOG=1, then READY=1 (all no-ops when no
+ * service manager listens). */
+static void
+svc_ready(struct daemon *d)
+{
+	uint64_t ms;
+
+	if (d->nfy.fd < 0)
+		return;
+	d->rate_ms = uv_now(&d->loop);
+	d->rate_records = records_seen(d);
+	start_timer(d, &d->status_timer, status_cb, STATUS_MS, STATUS_MS,
+	    "status");
+	if (d->wd_usec > 0) {
+		/* Half the interval, as sd_watchdog_enabled(3) advises. */
+		ms = d->wd_usec / 2000;
+		if (ms == 0)
+			ms = 1;
+		start_timer(d, &d->wd_timer, watchdog_cb, 0, ms, "watchdog");
+		log_info("watchdog: pinging every %llu ms",
+		    (unsigned long long)ms);
+	}
+	svc_status(d, "READY=1\n");
+}
+
+/*
+ * Take the sockets a service manager passed (LISTEN_FDS): the first Unix
+ * stream listener and the first TCP listener go to net instead of the
+ * configured addresses. Anything else is a setup error (exit 78, so the
+ * manager does not retry). The variables are removed from the environment.
+ */
+static void
+adopt_sockets(struct daemon *d)
+{
+	struct activate_fd fds[ACTIVATE_FDS_MAX];
+	struct sockaddr_un sa;
+	socklen_t sl;
+	char err[200];
+	int i, n, dom, type, acc;
+
+	d->fd_unix = d->fd_tcp = -1;
+	if (activate_parse(getenv("LISTEN_PID"), getenv("LISTEN_FDS"),
+	    getenv("LISTEN_FDNAMES"), (long)getpid(), fds, ACTIVATE_FDS_MAX, &n,
+	    err, sizeof(err)) != 0) {
+		log_errx("inherited sockets: %s", err);
+		exit(EXIT_CONFIG);
+	}
+	unsetenv("LISTEN_PID");
+	unsetenv("LISTEN_FDS");
+	unsetenv("LISTEN_FDNAMES");
+	for (i = 0; i < n; i++) {
+		sl = sizeof(dom);
+		if (getsockopt(fds[i].fd, SOL_SOCKET, SO_DOMAIN, &dom, &sl) ||
+		    (sl = sizeof(type), getsockopt(fds[i].fd, SOL_SOCKET,
+		    SO_TYPE, &type, &sl)) ||
+		    (sl = sizeof(acc), getsockopt(fds[i].fd, SOL_SOCKET,
+		    SO_ACCEPTCONN, &acc, &sl))) {
+			log_err("inherited fd %d (%s)", fds[i].fd, fds[i].name);
+			exit(EXIT_CONFIG);
+		}
+		(void)fcntl(fds[i].fd, F_SETFD, FD_CLOEXEC);
+		if (type == SOCK_STREAM && acc && dom == AF_UNIX &&
+		    d->fd_unix < 0) {
+			d->fd_unix = fds[i].fd;
+			memset(&sa, 0, sizeof(sa));
+			sl = sizeof(sa);
+			if (getsockname(fds[i].fd, (struct sockaddr *)&sa,
+			    &sl) == 0 && sa.sun_path[0] == '/')
+				snprintf(d->unix_inherited,
+				    sizeof(d->unix_inherited), "%s",
+				    sa.sun_path);
+		} else if (type == SOCK_STREAM && acc && (dom == AF_INET ||
+		    dom == AF_INET6) && d->fd_tcp < 0) {
+			d->fd_tcp = fds[i].fd;
+		} else {
+			log_errx("inherited fd %d (%s): not a listening Unix "
+			    "or TCP stream socket coefd can use (one of each)",
+			    fds[i].fd, fds[i].name);
+			exit(EXIT_CONFIG);
+		}
+		log_info("inherited fd %d (%s): %s listener", fds[i].fd,
+		    fds[i].name, dom == AF_UNIX ? "unix" : "tcp");
+	}
+}
+
 static int
 do_reload(struct daemon *d, char *msg, size_t len, int *kept, int *stale,
     int *orphan)
@@ -312,15 +490,18 @@ do_reload(struct daemon *d, char *msg, size_t len, int *kept, int *stale,
 	uid_t uids[CONF_ADMIN_USERS_MAX];
 	size_t nuids;
 
-	if ((c = load_conf(d->conf_path, msg, len)) == NULL)
-		return E_ARG;
-	if (resolve_admins(c, uids, &nuids, msg, len) != 0) {
+	/* The manager sees the reload begin and end, failed or not (not
+	 * once it was told we are stopping). */
+	if (!d->stopping)
+		svc_notify(d, "RELOADING=1");
+	if ((c = load_conf(d->conf_path, msg, len)) == NULL ||
+	    resolve_admins(c, uids, &nuids, msg, len) != 0 ||
+	    (c->d.token_file[0] != '\0' &&
+	    (tok = load_token(c, msg, len)) == NULL)) {
 		conf_free(c);
-		return E_ARG;
-	}
-	if (c->d.token_file[0] != '\0' &&
-	    (tok = load_token(c, msg, len)) == NULL) {
-		conf_free(c);
+		snprintf(d->reload_err, sizeof(d->reload_err), "%s", msg);
+		if (!d->stopping)
+			svc_status(d, "READY=1\n");
 		return E_ARG;
 	}
 	memcpy(d->admin_uids, uids, nuids * sizeof(uid_t));
@@ -337,6 +518,9 @@ do_reload(struct daemon *d, char *msg, size_t len, int *kept, int *stale,
 	log_notice("configuration reloaded from %s: %d models kept, %d stale "
 	    "(term list changed; .reset applies it), %d without a section "
 	    "(kept)", d->conf_path, *kept, *stale, *orphan);
+	d->reload_err[0] = '\0';
+	if (!d->stopping)
+		svc_status(d, "READY=1\n");
 	return 0;
 }
 
@@ -403,6 +587,7 @@ shutdown_start(struct daemon *d, const char *why)
 		exit(1);
 	}
 	d->stopping = 1;
+	svc_notify(d, "STOPPING=1\nSTATUS=shutting down");
 	log_notice("%s: shutting down (%zu models)", why,
 	    registry_count(d->reg));
 	net_stop_listening(d->net);
@@ -473,7 +658,7 @@ main(int argc, char **argv)
 	struct daemon d;
 	struct net_handler nh;
 	struct net_opts no;
-	char err[400];
+	char err[400], st[sizeof(err) + 32];
 	int ch, check = 0, rc, i, status;
 
 	/* Matrices are small: OpenBLAS must not start worker threads. It
@@ -515,13 +700,31 @@ main(int argc, char **argv)
 		return 2;
 	}
 	log_init(LOG_LVL_INFO);
+	d.fd_unix = d.fd_tcp = -1;
+	d.nfy.fd = -1;
+	if (!check) {
+		if (notify_open(&d.nfy, getenv("NOTIFY_SOCKET"), err,
+		    sizeof(err)) != 0)
+			log_warnx("%s", err);
+		if (notify_watchdog_usec(getenv("WATCHDOG_USEC"),
+		    getenv("WATCHDOG_PID"), (long)getpid(), &d.wd_usec) != 0)
+			log_warnx("WATCHDOG_USEC/WATCHDOG_PID malformed: "
+			    "watchdog off");
+		adopt_sockets(&d);
+	}
 	if ((d.conf = load_conf(d.conf_path, err, sizeof(err))) == NULL) {
 		fprintf(stderr, "%s\n", err);
+		snprintf(st, sizeof(st), "STATUS=bad configuration: %s", err);
+		svc_notify(&d, st);
+		notify_close(&d.nfy);
 		return EXIT_CONFIG;
 	}
 	if (resolve_admins(d.conf, d.admin_uids, &d.nadmin_uids, err,
 	    sizeof(err)) != 0) {
 		fprintf(stderr, "%s: %s\n", d.conf_path, err);
+		snprintf(st, sizeof(st), "STATUS=bad configuration: %s", err);
+		svc_notify(&d, st);
+		notify_close(&d.nfy);
 		conf_free(d.conf);
 		return EXIT_CONFIG;
 	}
@@ -540,6 +743,7 @@ main(int argc, char **argv)
 	    (d.token = load_token(d.conf, err, sizeof(err))) == NULL) {
 		log_errx("%s", err);
 		conf_free(d.conf);
+		notify_close(&d.nfy);
 		return EXIT_CONFIG;
 	}
 	signal(SIGPIPE, SIG_IGN);
@@ -572,15 +776,20 @@ main(int argc, char **argv)
 		registry_free(d.reg);
 		conf_free(d.conf);
 		free(d.token);
+		notify_close(&d.nfy);
 		return 1;
 	}
 	if (start_signal(&d, &d.sig_hup, SIGHUP) != 0 ||
 	    start_signal(&d, &d.sig_term, SIGTERM) != 0 ||
 	    start_signal(&d, &d.sig_int, SIGINT) != 0)
 		fatalx("cannot install signal handlers");
-	log_notice("coefd %s ready: socket %s%s%s, %d configured sections",
-	    COEFD_VERSION, no.unix_path, d.conf->d.tcp.on ? ", tcp on" : "",
-	    d.conf->d.udp.on ? ", udp on" : "", d.conf->nmodels);
+	log_notice("coefd %s ready: socket %s%s%s%s, %d configured sections",
+	    COEFD_VERSION, no.unix_path != NULL ? no.unix_path : "(unnamed)",
+	    d.fd_unix >= 0 ? " (inherited)" : "",
+	    d.fd_tcp >= 0 ? ", tcp inherited" : d.conf->d.tcp.on ?
+	    ", tcp on" : "", d.conf->d.udp.on ? ", udp on" : "",
+	    d.conf->nmodels);
+	svc_ready(&d);
 
 	uv_run(&d.loop, UV_RUN_DEFAULT);
 
@@ -596,5 +805,6 @@ main(int argc, char **argv)
 	registry_free(d.reg);
 	conf_free(d.conf);
 	free(d.token);
+	notify_close(&d.nfy);
 	return status;
 }

@@ -48,6 +48,27 @@ finite_bounded(double v)
 	return isfinite(v) && fabs(v) <= RLS_VALUE_MAX;
 }
 
+/* The checks every record passes before it may touch any state: n values
+ * v and the target finite and within +-RLS_VALUE_MAX (E_NUMERIC), a weight
+ * in [0, RLS_VALUE_MAX] and, with a time constant, a finite time (E_ARG). */
+static int
+check_record(const struct model *m, const double *v, int n, double y,
+    double w, double t)
+{
+	int j;
+
+	for (j = 0; j < n; j++)
+		if (!finite_bounded(v[j]))
+			return E_NUMERIC;
+	if (!finite_bounded(y))
+		return E_NUMERIC;
+	if (!(w >= 0) || !(w <= RLS_VALUE_MAX))
+		return E_ARG;
+	if (m->o.tau > 0 && !isfinite(t))
+		return E_ARG;
+	return 0;
+}
+
 /*
  * model_opts_default: lambda = 0.999 (memory 1000 records), no time
  * constant, regularisation delta = 1e-6, sigma memory 10x, joint drift
@@ -264,16 +285,26 @@ coef_out(const struct model *m)
 	double theta[RLS_MAX_P];
 	int j;
 
+	double th_o[RLS_MAX_P], pin_o[RLS_MAX_P];
+	const double *th = theta, *pin = m->theta_pin;
+
 	if (!m->pinned || (m->o.tol_abs == NULL && m->o.tol_pct == NULL))
 		return 0;
 	rls_theta(m->rls, theta);
+	/* Tolerances are in the user's terms, not the engine's scaled ones. */
+	if (m->terms != NULL) {
+		terms_to_original(m->terms, theta, NULL, th_o, NULL);
+		terms_to_original(m->terms, m->theta_pin, NULL, pin_o, NULL);
+		th = th_o;
+		pin = pin_o;
+	}
 	for (j = 0; j < m->o.p; j++) {
-		double dv = fabs(theta[j] - m->theta_pin[j]);
+		double dv = fabs(th[j] - pin[j]);
 
 		if (m->o.tol_abs != NULL && dv > m->o.tol_abs[j])
 			return 1;
 		if (m->o.tol_pct != NULL &&
-		    dv > m->o.tol_pct[j] / 100 * fabs(m->theta_pin[j]))
+		    dv > m->o.tol_pct[j] / 100 * fabs(pin[j]))
 			return 1;
 	}
 	return 0;
@@ -297,19 +328,12 @@ model_step(struct model *m, const double *phi, double y, double w,
 	struct alarm_input in;
 	struct stats_report sr;
 	double lam, sref, f = NAN;
-	int j, p = m->o.p;
+	int rc, p = m->o.p;
 
 	if (out == NULL)
 		out = &tmp;
-	for (j = 0; j < p; j++)
-		if (!finite_bounded(phi[j]))
-			return E_NUMERIC;
-	if (!finite_bounded(y))
-		return E_NUMERIC;
-	if (!(w >= 0) || !(w <= RLS_VALUE_MAX))
-		return E_ARG;
-	if (m->o.tau > 0 && !isfinite(t))
-		return E_ARG;
+	if ((rc = check_record(m, phi, p, y, w, t)) != 0)
+		return rc;
 
 	lam = step_lambda(m, t);
 	rls_apriori(m->rls, phi, &a);
@@ -629,20 +653,13 @@ model_ingest(struct model *m, const double *x, double y, double w, double t,
     struct model_step_out *out)
 {
 	double phi[RLS_MAX_P];
-	int f, nf, rc;
+	int nf, rc;
 
 	if (m->terms == NULL)
 		return E_STATE;
 	nf = terms_nfields(m->terms);
-	for (f = 0; f < nf; f++)
-		if (!finite_bounded(x[f]))
-			return E_NUMERIC;
-	if (!finite_bounded(y))
-		return E_NUMERIC;
-	if (!(w >= 0) || !(w <= RLS_VALUE_MAX))
-		return E_ARG;
-	if (m->o.tau > 0 && !isfinite(t))
-		return E_ARG;
+	if ((rc = check_record(m, x, nf, y, w, t)) != 0)
+		return rc;
 	/* Auto scaling maps this record into |u| <= 1, so its own terms
 	 * cannot overflow below: the constants are never fixed by a record
 	 * that is then rejected. */

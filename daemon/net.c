@@ -233,6 +233,12 @@ conn_dispatch(struct conn *c, const struct proto_msg *msg)
 		proto_format_error(&j, msg->line, PROTO_R_INTERNAL,
 		    "reply too large");
 	}
+	/* Every rejection is answered and counted; the log gets them too,
+	 * rate-limited per connection so a bad feeder cannot flood it. */
+	if (j.len > 9 && memcmp(j.buf, "{\"error\":", 9) == 0 &&
+	    log_rate_allow(&c->lr, now_ms(n)))
+		log_info("peer %s: rejected %.*s", c->sess.peer,
+		    (int)(j.len > 300 ? 300 : j.len), j.buf);
 	if (out_append(c, j.buf, j.len) != 0 || out_append(c, "\n", 1) != 0) {
 		conn_log(c, "out of memory for a reply; closing", 0);
 		conn_close(c);

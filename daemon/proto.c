@@ -840,35 +840,6 @@ reject_value(struct proto_msg *msg, enum proto_reason r, size_t k,
  * Line checks: NUL bytes and UTF-8 (RFC 3629; Unicode 15 table 3-7).
  */
 
-/* Length of the valid UTF-8 sequence at s[0..n) (s[0] >= 0x80), or 0. */
-static size_t
-utf8_seq(const unsigned char *s, size_t n)
-{
-	unsigned char c = s[0];
-
-	if (c >= 0xc2 && c <= 0xdf)
-		return n >= 2 && (s[1] & 0xc0) == 0x80 ? 2 : 0;
-	if (c >= 0xe0 && c <= 0xef) {
-		if (n < 3 || (s[1] & 0xc0) != 0x80 || (s[2] & 0xc0) != 0x80)
-			return 0;
-		if (c == 0xe0 && s[1] < 0xa0)
-			return 0;	/* overlong */
-		if (c == 0xed && s[1] > 0x9f)
-			return 0;	/* UTF-16 surrogate */
-		return 3;
-	}
-	if (c >= 0xf0 && c <= 0xf4) {
-		if (n < 4 || (s[1] & 0xc0) != 0x80 || (s[2] & 0xc0) != 0x80 ||
-		    (s[3] & 0xc0) != 0x80)
-			return 0;
-		if (c == 0xf0 && s[1] < 0x90)
-			return 0;	/* overlong */
-		if (c == 0xf4 && s[1] > 0x8f)
-			return 0;	/* above U+10FFFF */
-		return 4;
-	}
-	return 0;	/* 0x80-0xc1 (continuation, overlong lead), 0xf5-0xff */
-}
 
 /*
  * Check s[0..n) for NUL bytes and invalid UTF-8. Eight bytes at a time
@@ -906,7 +877,7 @@ check_bytes(const char *s, size_t n, struct proto_msg *msg)
 			i++;
 			continue;
 		}
-		k = utf8_seq(p + i, n - i);
+		k = json_utf8_seq(p + i, n - i);
 		if (k == 0) {
 			size_t dn = 0;
 

@@ -6,7 +6,9 @@
  *   n_gated, n_eff, weight, lambda, tau, memory, rss, mse, nrss, r2,
  *   r2_pred, sigma, dof, rank, cond, sigma_ref, alarms (names of the
  *   detectors in alarm), detectors {name: {on, changed, value}}, frozen,
- *   reference (null or {coef, source, pinned, drift_d2, drift_q}), last_t.
+ *   reference (null or {coef, source, pinned, drift_d2, drift_q}), last_t,
+ *   and, when the caller names them, fields (the raw fields records carry,
+ *   in positional order) and target (the target field's name).
  * Non-finite numbers are written as null (json_num does that).
  */
 #include <math.h>
@@ -93,6 +95,20 @@ time_value(struct json *j, double t, int epoch)
 		json_num(j, t);
 }
 
+/* render_alarms: the "alarms" key: names of the detectors in alarm. */
+void
+render_alarms(struct json *j, const struct model *m)
+{
+	int d;
+
+	json_key(j, "alarms");
+	json_arr_begin(j);
+	for (d = 0; d < ALARM_NDET; d++)
+		if (m->al.st[d].on)
+			json_str(j, alarm_name((enum alarm_det)d));
+	json_arr_end(j);
+}
+
 /*
  * render_model: write one JSON object describing r->m with the report
  * r->rep (coefficients already in the user's units) and the coefficient
@@ -156,12 +172,7 @@ render_model(struct json *j, const struct render_model *r)
 	json_num(j, rep->cond);
 	json_key(j, "sigma_ref");
 	json_num(j, rep->sigma_ref);
-	json_key(j, "alarms");
-	json_arr_begin(j);
-	for (d = 0; d < ALARM_NDET; d++)
-		if (m->al.st[d].on)
-			json_str(j, alarm_name((enum alarm_det)d));
-	json_arr_end(j);
+	render_alarms(j, m);
 	json_key(j, "detectors");
 	json_obj_begin(j);
 	for (d = 0; d < ALARM_NDET; d++) {
@@ -199,6 +210,15 @@ render_model(struct json *j, const struct render_model *r)
 		time_value(j, m->last_t, r->epoch_times);
 	else
 		json_null(j);
+	if (r->fields != NULL) {
+		json_key(j, "fields");
+		json_arr_begin(j);
+		for (d = 0; d < r->nfields; d++)
+			json_str(j, r->fields[d]);
+		json_arr_end(j);
+		json_key(j, "target");
+		json_str(j, r->target != NULL ? r->target : "");
+	}
 	json_obj_end(j);
 	return json_finish(j);
 }

@@ -22,6 +22,7 @@ main(void)
 	srunner_add_suite(sr, alarm_suite());
 	srunner_add_suite(sr, terms_suite());
 	srunner_add_suite(sr, json_suite());
+	srunner_add_suite(sr, jread_suite());
 	srunner_add_suite(sr, proto_suite());
 	srunner_add_suite(sr, model_suite());
 	srunner_add_suite(sr, nist_suite());
@@ -29,6 +30,8 @@ main(void)
 	srunner_add_suite(sr, dist_suite());
 	srunner_add_suite(sr, conf_suite());
 	srunner_add_suite(sr, torture_suite());
+	srunner_add_suite(sr, activate_suite());
+	srunner_add_suite(sr, confman_suite());
 	srunner_run_all(sr, CK_NORMAL);
 	nfail = srunner_ntests_failed(sr);
 	nrun = srunner_ntests_run(sr);

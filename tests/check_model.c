@@ -15,6 +15,7 @@
 #include "err.h"
 #include "model.h"
 #include "suites.h"
+#include "terms.h"
 #include "testutil.h"
 
 static void
@@ -372,6 +373,50 @@ START_TEST(test_model_opts_check)
 }
 END_TEST
 
+
+/* Per-coefficient tolerances are in the user's units even when the engine
+ * works on centred and scaled terms (regression, 2026-12-02: they were
+ * compared in the scaled space). Slope moves by 0.2 with x around 50
+ * (auto scale 64): a 0.5 absolute tolerance must not fire, 0.1 must. */
+START_TEST(test_model_tolerance_in_user_units)
+{
+	static const char *const fields[] = { "x", "y" };
+	double tols[2][2] = { { NAN, 0.5 }, { NAN, 0.1 } };
+	struct model_opts o;
+	struct model *m;
+	struct terms *t;
+	struct rng g;
+	char err[100];
+	double x[2];
+	int k, i;
+
+	for (k = 0; k < 2; k++) {
+		ck_assert_int_eq(terms_parse("x", fields, 2, 1, 1, &t, err,
+		    sizeof(err)), 0);
+		model_opts_default(&o, 2, 1);
+		o.lambda = 0.98;
+		o.drift_alpha = 1e-300;		/* joint test out of the way */
+		o.alarm.cusum_h = INFINITY;
+		o.alarm.gate_z = INFINITY;
+		o.tol_abs = tols[k];
+		m = model_new(&o);
+		ck_assert_int_eq(model_set_terms(m, t, 1), 0);
+		rng_seed(&g, 9);
+		for (i = 0; i < 1500; i++) {
+			double b = i < 500 ? 1.0 : 1.2;
+
+			x[0] = 50 + 10 * rng_norm(&g);
+			x[1] = 2 + b * x[0] + 0.01 * rng_norm(&g);
+			ck_assert_int_ge(model_ingest(m, x, x[1], 1, i, NULL), 0);
+			if (i == 499)
+				ck_assert_int_eq(model_pin(m, i), 0);
+		}
+		ck_assert_int_eq(m->al.st[ALARM_DRIFT].on, k == 1);
+		model_free(m);
+	}
+}
+END_TEST
+
 Suite *
 model_suite(void)
 {
@@ -388,6 +433,7 @@ model_suite(void)
 	tcase_add_test(tc, test_model_level_shift);
 	tcase_add_test(tc, test_model_reset_keeps_reference);
 	tcase_add_test(tc, test_model_opts_check);
+	tcase_add_test(tc, test_model_tolerance_in_user_units);
 	suite_add_tcase(s, tc);
 	return s;
 }

@@ -15,10 +15,10 @@ if [ -n "$bad" ]; then
 	echo "purity: libcore.a calls I/O or impure functions:" $bad
 	rc=1
 fi
-# Section symbols (flag d, named after their section) are not variables:
-# sanitizer builds reference .data for their own metadata.
+# Section symbols (flag column "d", e.g. the .data section symbol that
+# sanitizer builds emit for their instrumentation) are not variables.
 globals=$(objdump -t "$lib" | awk '($0 ~ /[ \t]\.(data|bss)[ \t]/) &&
-    $NF !~ /^\.(data|bss)$/ {print $NF}')
+    substr($0, index($0, " ") + 6, 1) != "d" {print $NF}')
 if [ -n "$globals" ]; then
 	echo "purity: writable globals in libcore.a:" $globals
 	rc=1

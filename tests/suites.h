@@ -9,6 +9,7 @@ Suite *rls_suite(void);
 Suite *stats_suite(void);
 Suite *alarm_suite(void);
 Suite *terms_suite(void);
+Suite *jread_suite(void);
 Suite *json_suite(void);
 Suite *proto_suite(void);
 Suite *model_suite(void);
@@ -17,5 +18,7 @@ Suite *recursive_suite(void);
 Suite *dist_suite(void);
 Suite *conf_suite(void);
 Suite *torture_suite(void);
+Suite *activate_suite(void);
+Suite *confman_suite(void);
 
 #endif

@@ -19,8 +19,8 @@ What happens (all seeded, deterministic):
   the others behave.
 
 Writes, into the directory given as the first argument:
-  greenhouse.csv   one row per reading: sensor,time,ref,raw,temp,rh
-  part1.csv        days 1-2 (calibration period), part2.csv days 3-5
+  greenhouse.csv   one row per reading: time,sensor,raw,temp,rh,ref
+  part1-ghK.csv    sensor K, days 1-2 (calibration); part2-ghK.csv days 3-5
   truth.json       the true coefficients of every sensor, the drift onset,
                    the spike count, for the demo's checks.
 Column order in the CSV files is shuffled on purpose (ref is not first):
@@ -88,19 +88,18 @@ def main():
                 spikes[s] = spikes.get(s, 0) + 1
             rows.append((s, t, ref, raw, t_loc, rh_rep))
 
-    header = "time,sensor,raw,temp,rh,ref\n"
-
-    def write(name, sel):
+    def write(name, sel, with_sensor):
         with open(os.path.join(out, name), "w") as f:
-            f.write(header)
+            f.write("time,%sraw,temp,rh,ref\n" % ("sensor," if with_sensor else ""))
             for s, t, ref, raw, tl, rh in sel:
-                f.write("%d,%s,%.3f,%.2f,%.1f,%.2f\n" % (t, s, raw, tl, rh, ref))
+                f.write("%d,%s%.3f,%.2f,%.1f,%.2f\n"
+                        % (t, s + "," if with_sensor else "", raw, tl, rh, ref))
 
-    write("greenhouse.csv", rows)
+    write("greenhouse.csv", rows, True)
     split = START + 2 * 86400
     for s in sensors:
-        write("part1-%s.csv" % s, [r for r in rows if r[0] == s and r[1] < split])
-        write("part2-%s.csv" % s, [r for r in rows if r[0] == s and r[1] >= split])
+        write("part1-%s.csv" % s, [r for r in rows if r[0] == s and r[1] < split], False)
+        write("part2-%s.csv" % s, [r for r in rows if r[0] == s and r[1] >= split], False)
     with open(os.path.join(out, "truth.json"), "w") as f:
         json.dump({"start": START, "drift_onset": DRIFT_ONSET,
                    "stuck_from": STUCK_FROM, "spikes_at": SPIKES_AT,
