@@ -378,3 +378,4 @@ clean:
 	rm -rf build build-san build-fuzz
 
 -include $(CORE_OBJ:.o=.d) $(DAEMON_OBJ:.o=.d) $(CLIENT_OBJ:.o=.d) $(TEST_OBJ:.o=.d)
+-include $(FUZZ_TARGETS:%=$(BUILD)/tests/fuzz/fuzz_%.d)
