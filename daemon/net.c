@@ -66,10 +66,16 @@ struct conn {
 	int		 drain;		/* close once the output is written */
 	int		 closing;
 	int		 eof;
+	int		 uid_counted;	/* counted in net's per-uid table */
 	uint64_t	 last_ms;	/* last input */
 	uint64_t	 over_ms;	/* when the output went over the cap */
 	struct log_rate	 lr;
 	struct conn	*prev, *next;
+};
+
+struct uid_count {
+	uid_t		 uid;
+	unsigned	 n;
 };
 
 struct net {
@@ -85,6 +91,9 @@ struct net {
 	int		 have_unix, have_tcp, have_udp;
 	int		 listeners_open;
 	struct conn	*conns;
+	struct uid_count *uids;		/* open Unix connections per peer
+					 * uid, sorted by uid */
+	size_t		 nuids, capuids;
 	struct net_stats st;
 	char		 rbuf[NET_READ_BUF];
 	char		 ubuf[NET_READ_BUF];
@@ -101,6 +110,7 @@ struct net {
 };
 
 static void conn_close(struct conn *c);
+static void uid_remove(struct net *n, uid_t uid);
 static void conn_process(struct conn *c, const char *buf, size_t len);
 static void read_cb(uv_stream_t *s, ssize_t nread, const uv_buf_t *buf);
 static void alloc_cb(uv_handle_t *h, size_t suggested, uv_buf_t *buf);
@@ -374,6 +384,10 @@ conn_close(struct conn *c)
 	if (c->closing)
 		return;
 	c->closing = 1;
+	if (c->uid_counted) {
+		uid_remove(c->net, c->sess.uid);
+		c->uid_counted = 0;
+	}
 	uv_read_stop(&c->u.s);
 	uv_close(&c->u.h, conn_close_cb);
 	uv_close((uv_handle_t *)&c->timer, conn_close_cb);
@@ -413,17 +427,75 @@ tick_cb(uv_timer_t *t)
 	}
 }
 
+/*
+ * Open Unix connections per peer uid, for max_connections_per_uid: a
+ * sorted array, binary-searched (O(log k) per accept, k distinct uids;
+ * scanning every connection made a burst of N connects cost O(N^2) and
+ * stalled the loop for seconds at N = 9000). Returns the slot of uid or
+ * where it would go.
+ */
+static size_t
+uid_slot(const struct net *n, uid_t uid)
+{
+	size_t lo = 0, hi = n->nuids, mid;
+
+	while (lo < hi) {
+		mid = lo + (hi - lo) / 2;
+		if (n->uids[mid].uid < uid)
+			lo = mid + 1;
+		else
+			hi = mid;
+	}
+	return lo;
+}
+
 static unsigned
 conns_of_uid(const struct net *n, uid_t uid)
 {
-	const struct conn *c;
-	unsigned k = 0;
+	size_t i = uid_slot(n, uid);
 
-	for (c = n->conns; c != NULL; c = c->next)
-		if (!c->closing && c->rd != NULL &&
-		    c->sess.kind == SESSION_UNIX && c->sess.uid == uid)
-			k++;
-	return k;
+	return i < n->nuids && n->uids[i].uid == uid ? n->uids[i].n : 0;
+}
+
+/* Count one more connection of uid; E_NOMEM when the table cannot grow. */
+static int
+uid_add(struct net *n, uid_t uid)
+{
+	size_t i = uid_slot(n, uid);
+	struct uid_count *nu;
+
+	if (i < n->nuids && n->uids[i].uid == uid) {
+		n->uids[i].n++;
+		return 0;
+	}
+	if (n->nuids == n->capuids) {
+		size_t cap = n->capuids ? 2 * n->capuids : 16;
+
+		if ((nu = realloc(n->uids, cap * sizeof(*nu))) == NULL)
+			return E_NOMEM;
+		n->uids = nu;
+		n->capuids = cap;
+	}
+	memmove(n->uids + i + 1, n->uids + i,
+	    (n->nuids - i) * sizeof(*n->uids));
+	n->uids[i].uid = uid;
+	n->uids[i].n = 1;
+	n->nuids++;
+	return 0;
+}
+
+static void
+uid_remove(struct net *n, uid_t uid)
+{
+	size_t i = uid_slot(n, uid);
+
+	if (i >= n->nuids || n->uids[i].uid != uid)
+		return;
+	if (--n->uids[i].n == 0) {
+		memmove(n->uids + i, n->uids + i + 1,
+		    (n->nuids - i - 1) * sizeof(*n->uids));
+		n->nuids--;
+	}
 }
 
 static void
@@ -579,10 +651,15 @@ on_connection(uv_stream_t *server, int status)
 		return;
 	}
 	if ((c->rd = proto_reader_new(n->o.max_line)) == NULL ||
-	    (c->msg = malloc(sizeof(*c->msg))) == NULL) {
+	    (c->msg = malloc(sizeof(*c->msg))) == NULL ||
+	    (is_unix && uid_add(n, c->sess.uid) != 0)) {
+		/* Not counted as open: conn_free must not count it closed. */
+		proto_reader_free(c->rd);
+		c->rd = NULL;
 		conn_refuse(c, PROTO_R_INTERNAL, "out of memory");
 		return;
 	}
+	c->uid_counted = is_unix;
 	n->st.conns++;
 	n->st.conns_total++;
 	if (n->h.on_conn != NULL)
@@ -1023,5 +1100,6 @@ net_free(struct net *n)
 	free(n->unix_path);
 	free(n->jbuf);
 	free(n->umsg);
+	free(n->uids);
 	free(n);
 }

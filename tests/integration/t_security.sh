@@ -202,9 +202,34 @@ printf '[daemon]\ntcp = 0.0.0.0:%s\nallow_remote = yes\n' "$PORT" >"$TMP/r.conf"
 "$COEFD" -n -c "$TMP/r.conf" >/dev/null 2>&1
 check "allowed with allow_remote = yes (checked with -n only)" [ $? -eq 0 ]
 
-# socket_mode is applied as configured.
-printf '[daemon]\nsocket_mode = 0600\n' >"$TMP/m.conf"
+# socket_mode is applied as configured; max_connections_per_uid caps one
+# user's connections, and a closed connection frees its place (the per-uid
+# table, not a scan of every connection, since 2026-12-02).
+printf '[daemon]\nsocket_mode = 0600\nmax_connections_per_uid = 3\n' \
+    >"$TMP/m.conf"
 start_daemon "$TMP/m.conf"
 check "socket_mode = 0600 gives mode 600" [ "$(stat -c %a "$SOCK")" = 600 ]
+out=$("$PY" - "$SOCK" <<'EOF2'
+import json, socket, sys, time
+def conn():
+    s = socket.socket(socket.AF_UNIX)
+    s.settimeout(5)
+    s.connect(sys.argv[1])
+    return s
+def ask(s):
+    s.sendall(b".version\n")
+    return json.loads(s.makefile().readline())
+held = [conn() for _ in range(3)]
+ok = all("version" in ask(s) for s in held)
+fourth = conn()
+r = json.loads(fourth.makefile().readline())
+held[0].close()
+time.sleep(0.3)
+again = conn()
+print(ok, r.get("error"), "version" in ask(again))
+EOF2
+)
+check "per-uid cap: 3 served, the 4th refused, a freed place reused ($out)" \
+    [ "$out" = "True connection_limit True" ]
 stop_daemon
 finish
