@@ -13,6 +13,7 @@
 #include <stdlib.h>
 #include <string.h>
 #include <sys/socket.h>
+#include <sys/resource.h>
 #include <sys/stat.h>
 #include <sys/un.h>
 #include <time.h>
@@ -213,6 +214,37 @@ resolve_admins(const struct conf *c, uid_t *uids, size_t *n, char *err,
 		uids[(*n)++] = pw.pw_uid;
 	}
 	return 0;
+}
+
+/*
+ * One descriptor per connection: raise the soft open-file limit to the
+ * hard one (systemd starts services with 1024 soft and a high hard limit,
+ * expecting programs that need more to raise it themselves), and warn
+ * when even that is below max_connections plus a reserve for listeners,
+ * state files and logs. Past the limit libuv accepts and closes new
+ * connections at once (its EMFILE fallback): the daemon keeps serving
+ * the connections it has.
+ */
+#define NOFILE_RESERVE	64
+
+static void
+raise_nofile(int max_conns)
+{
+	struct rlimit rl;
+	rlim_t want = (rlim_t)max_conns + NOFILE_RESERVE;
+
+	if (getrlimit(RLIMIT_NOFILE, &rl) != 0)
+		return;
+	if (rl.rlim_cur < rl.rlim_max) {
+		rl.rlim_cur = rl.rlim_max;
+		if (setrlimit(RLIMIT_NOFILE, &rl) != 0)
+			(void)getrlimit(RLIMIT_NOFILE, &rl);
+	}
+	if (rl.rlim_cur != RLIM_INFINITY && rl.rlim_cur < want)
+		log_warnx("open files limited to %llu, below max_connections "
+		    "(%d) + %d: connections past the limit are closed at once",
+		    (unsigned long long)rl.rlim_cur, max_conns,
+		    NOFILE_RESERVE);
 }
 
 static void
@@ -514,6 +546,7 @@ do_reload(struct daemon *d, char *msg, size_t len, int *kept, int *stale,
 	d->cmd.token = tok;
 	net_opts_of(d, c, &no);
 	net_apply_opts(d->net, &no);
+	raise_nofile(c->d.max_connections);
 	log_set_level(level_of(d, c));
 	log_notice("configuration reloaded from %s: %d models kept, %d stale "
 	    "(term list changed; .reset applies it), %d without a section "
@@ -739,6 +772,7 @@ main(int argc, char **argv)
 		return 0;
 	}
 	log_init(level_of(&d, d.conf));
+	raise_nofile(d.conf->d.max_connections);
 	if (d.conf->d.token_file[0] != '\0' &&
 	    (d.token = load_token(d.conf, err, sizeof(err))) == NULL) {
 		log_errx("%s", err);
