@@ -14,6 +14,7 @@
 #include <lapacke.h>
 #include <math.h>
 #include <stdint.h>
+#include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 
@@ -90,8 +91,8 @@ trace_bound(int p, double lambda, double delta)
 }
 
 /* P = R^-1 is symmetric positive definite (LAPACK dpotrf succeeds) and
- * its trace is finite and at most bound. */
-static void
+ * its trace is finite and at most bound; returns the trace. */
+static double
 check_cov(const struct model *m, double bound, const char *what)
 {
 	int p = m->o.p, i, j;
@@ -109,6 +110,7 @@ check_cov(const struct model *m, double bound, const char *what)
 	ck_assert_msg(LAPACKE_dpotrf(LAPACK_ROW_MAJOR, 'U', p, P, p) == 0,
 	    "%s: P is not positive definite", what);
 	free(P);
+	return tr;
 }
 
 static void
@@ -144,7 +146,7 @@ START_TEST(test_torture_collinear)
 	struct model *m;
 	struct model_report rep;
 	struct rng g;
-	double x[3], th[3], se[3], yh, s, lo, hi;
+	double x[3], th[3], se[3], yh, s, lo, hi, tr;
 	int i;
 
 	model_opts_default(&o, 3, 1);
@@ -160,8 +162,12 @@ START_TEST(test_torture_collinear)
 			MUST(state_finite(m));
 	}
 	MUST(state_finite(m));
-	check_cov(m, trace_bound(3, o.lambda, o.delta), "collinear");
+	tr = check_cov(m, trace_bound(3, o.lambda, o.delta), "collinear");
 	report(m, &rep, th, se);
+	fprintf(stderr, "torture collinear: 1e5 records, th1 + 2 th2 = %.4f "
+	    "(1), se %.3g %.3g, cond %.2g, trace P %.3g <= %.3g\n",
+	    th[1] + 2 * th[2], se[1], se[2], rep.cond, tr,
+	    trace_bound(3, o.lambda, o.delta));
 	ck_assert_int_eq(rep.rank, 3);
 	ck_assert_double_eq_tol(th[1] + 2 * th[2], 1.0, 0.01);
 	ck_assert_double_eq_tol(th[0], 1.0, 0.01);
@@ -215,7 +221,7 @@ START_TEST(test_torture_constant_features)
 	struct model *m;
 	struct model_report rep;
 	struct rng g;
-	double th[3], se[3], yh, s, lo, hi, bound;
+	double th[3], se[3], yh, s, lo, hi, bound, tr;
 	long i, n = torture_n();
 
 	model_opts_default(&o, 3, 1);
@@ -231,9 +237,12 @@ START_TEST(test_torture_constant_features)
 		}
 	}
 	MUST(state_finite(m));
-	check_cov(m, bound, "constant features, end");
+	tr = check_cov(m, bound, "constant features, end");
 	report(m, &rep, th, se);
 	ck_assert_int_eq(model_predict(m, phi, &yh, &s, &lo, &hi), 0);
+	fprintf(stderr, "torture constant features: %ld records, trace P %.3g "
+	    "<= %.3g, cond %.2g, slope se %.3g %.3g, |yhat - y*| %.2g\n", n,
+	    tr, bound, rep.cond, se[1], se[2], fabs(yh - yc));
 	/* Memory 1000 records, noise 0.1: the mean is known to ~0.003. */
 	ck_assert_double_eq_tol(yh, yc, 0.02);
 	ck_assert(s > 0.09 && s < 0.12);
@@ -263,7 +272,7 @@ START_TEST(test_torture_wild_scales)
 	struct reg_entry *e;
 	struct model_report rep;
 	struct rng g;
-	double x[3], th[3], se[3], ref[3], rel;
+	double x[3], th[3], se[3], ref[3], rel, worst = 0;
 	char err[160];
 	int i, j;
 
@@ -292,7 +301,10 @@ START_TEST(test_torture_wild_scales)
 		ck_assert_msg(rel < 1e-8, "coef %d: %.17g vs dgels %.17g", j,
 		    th[j], ref[j]);
 		ck_assert(isfinite(se[j]) && se[j] > 0);
+		worst = fmax(worst, rel);
 	}
+	fprintf(stderr, "torture 1e-8 next to 1e8: largest relative difference "
+	    "from dgels %.1e, cond %.2g\n", worst, rep.cond);
 	ck_assert_msg(rep.cond < 1e6, "scaled terms, cond %g", rep.cond);
 	check_cov(e->m, INFINITY, "wild scales");
 	registry_entry_free(e);
@@ -319,7 +331,7 @@ START_TEST(test_torture_lambda_no_excitation)
 	struct model *m;
 	struct model_report rep;
 	struct rng g;
-	double x[3], th[3], se[3], y, bound, big;
+	double x[3], th[3], se[3], y, bound, big, maxtr;
 	int i, j, k;
 
 	for (k = 0; k < 2; k++) {
@@ -328,7 +340,8 @@ START_TEST(test_torture_lambda_no_excitation)
 		if (k == 1)
 			o.delta = 0;
 		m = model_new(&o);
-		bound = k == 0 ? trace_bound(3, o.lambda, o.delta) : 0;
+		bound = k == 0 ? trace_bound(3, o.lambda, o.delta) : INFINITY;
+		maxtr = 0;
 		rng_seed(&g, 4);
 		for (i = 0; i < 200; i++) {
 			x[0] = 1;
@@ -344,7 +357,8 @@ START_TEST(test_torture_lambda_no_excitation)
 			MUST(model_step(m, phi,
 			    y + 0.1 * rng_norm(&g), 1, 200 + i, NULL) == 0);
 			if (k == 0 && i % 4999 == 0)
-				check_cov(m, bound, "lambda 0.9");
+				maxtr = fmax(maxtr, check_cov(m, bound,
+				    "lambda 0.9"));
 		}
 		MUST(state_finite(m));
 		report(m, &rep, th, se);
@@ -372,9 +386,19 @@ START_TEST(test_torture_lambda_no_excitation)
 		}
 		ck_assert_msg(big < 10, "largest |theta| %g on re-excitation",
 		    big);
+		if (k == 0)
+			fprintf(stderr, "torture lambda 0.9 unexcited: rank 3, "
+			    "largest trace P %.3g (bound %.3g), largest "
+			    "|theta| on re-excitation %.3g\n", maxtr, bound,
+			    big);
+		else
+			fprintf(stderr, "torture lambda 0.9 unexcited, "
+			    "regularise 0: rank 1 (undetermined, predictions "
+			    "refused), largest |theta| on re-excitation "
+			    "%.3g\n", big);
 		for (j = 0; j < 3; j++)
 			ck_assert_double_eq_tol(th[j], th_true[j], 0.1);
-		check_cov(m, k == 0 ? bound : INFINITY, "re-excited");
+		check_cov(m, bound, "re-excited");
 		model_free(m);
 	}
 }
@@ -498,6 +522,9 @@ START_TEST(test_torture_extreme_values)
 		}
 		ck_assert_int_eq(memcmp(T, m->rls->T, tlen), 0);
 		ck_assert_uint_eq(m->n_seen, 200000);
+		fprintf(stderr, "torture extremes, lambda %g: 2e5 records of "
+		    "+-1e100, subnormals, -0 all accepted, state finite, 8 "
+		    "out-of-range values refused\n", o.lambda);
 		free(T);
 		model_free(m);
 	}
