@@ -353,9 +353,11 @@ class Driver:
     def ceiling(self):
         """The memory the configured limits allow: the idle daemon plus,
         per allowed connection, its line buffer (max_line), its parsed
-        message (6.5 KiB, rounded up to 16 KiB) and its output buffer
-        (output_buffer, which can be passed by one reply), plus 64 KiB
-        per allowed model; times --rss-factor (sanitizer builds)."""
+        message (6.5 KiB, rounded up to 16 KiB) and its output (capped at
+        output_buffer, which one reply may pass: counted here as twice
+        output_buffer, enough for every reply this driver provokes; the
+        daemon's absolute cap per reply is 8 MiB), plus 64 KiB per allowed
+        model; times --rss-factor (sanitizer builds)."""
         a = self.a
         per_conn = a.max_line + 16384 + 2 * a.output_buffer
         return int((self.base_rss + a.max_connections * per_conn +
