@@ -78,20 +78,29 @@ TEST_SRC = \
 	tests/nist.c \
 	tests/testutil.c
 
+# Benchmarks (make bench only; not part of check or CI).
+BENCH_SRC = \
+	tests/bench/bench_engine.c \
+	tests/bench/loadgen.c
+
 CORE_OBJ   = $(CORE_SRC:%.c=$(BUILD)/%.o)
 DAEMON_OBJ = $(DAEMON_SRC:%.c=$(BUILD)/%.o)
 CLIENT_OBJ = $(CLIENT_SRC:%.c=$(BUILD)/%.o)
 TEST_OBJ   = $(TEST_SRC:%.c=$(BUILD)/%.o)
+BENCH_OBJ  = $(BENCH_SRC:%.c=$(BUILD)/%.o)
 
 LIBCORE = $(BUILD)/libcore.a
 COEFD   = $(BUILD)/coefd
 COEFCTL = $(BUILD)/coefctl
 UNITS   = $(BUILD)/check_unit
+BENCH_ENGINE = $(BUILD)/bench_engine
+LOADGEN = $(BUILD)/loadgen
+PYTHON  ?= /usr/bin/python3
 
 export OPENBLAS_NUM_THREADS = 1
 
 .PHONY: all check san integration demo bench clean deps \
-        _all _check _unit _integration
+        _all _check _unit _integration _bench
 
 all: deps
 	@$(MAKE) --no-print-directory _all
@@ -109,6 +118,11 @@ san: deps
 integration: deps
 	@$(MAKE) --no-print-directory _integration
 
+# Benchmarks and performance targets: prints one table (tests/bench/run.py),
+# about 2-3 minutes, loopback only. Never gates anything on speed.
+bench: deps
+	@$(MAKE) --no-print-directory _bench
+
 deps:
 	@sh .ci/deps
 
@@ -123,6 +137,9 @@ _unit: $(UNITS)
 
 _integration: _all
 	@sh tests/integration/run.sh $(BUILD)
+
+_bench: _all $(BENCH_ENGINE) $(LOADGEN)
+	$(PYTHON) tests/bench/run.py $(BUILD)
 
 $(LIBCORE): $(CORE_OBJ)
 	@rm -f $@
@@ -139,6 +156,13 @@ $(COEFCTL): $(CLIENT_OBJ) $(LIBCORE)
 $(UNITS): $(TEST_OBJ) $(LIBCORE)
 	$(CC) $(FINAL_LDFLAGS) -o $@ $(TEST_OBJ) $(LIBCORE) $(TEST_LIBS) $(CORE_LIBS)
 
+$(BENCH_ENGINE): $(BUILD)/tests/bench/bench_engine.o $(LIBCORE)
+	$(CC) $(FINAL_LDFLAGS) -o $@ $(BUILD)/tests/bench/bench_engine.o \
+	    $(LIBCORE) $(CORE_LIBS)
+
+$(LOADGEN): $(BUILD)/tests/bench/loadgen.o
+	$(CC) $(FINAL_LDFLAGS) -o $@ $(BUILD)/tests/bench/loadgen.o -lpthread
+
 $(BUILD)/daemon/%.o: daemon/%.c
 	@mkdir -p $(@D)
 	$(CC) $(FINAL_CFLAGS) $(CORE_CFLAGS) $(NET_CFLAGS) -c -o $@ $<
@@ -154,4 +178,5 @@ $(BUILD)/tests/%.o: tests/%.c
 clean:
 	rm -rf build build-san
 
--include $(CORE_OBJ:.o=.d) $(DAEMON_OBJ:.o=.d) $(CLIENT_OBJ:.o=.d) $(TEST_OBJ:.o=.d)
+-include $(CORE_OBJ:.o=.d) $(DAEMON_OBJ:.o=.d) $(CLIENT_OBJ:.o=.d) $(TEST_OBJ:.o=.d) \
+    $(BENCH_OBJ:.o=.d)
