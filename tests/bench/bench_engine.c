@@ -10,6 +10,7 @@
  */
 #define _GNU_SOURCE
 #include <errno.h>
+#include <malloc.h>
 #include <math.h>
 #include <stdint.h>
 #include <stdio.h>
@@ -23,6 +24,7 @@
 #include "proto.h"
 #include "registry.h"
 #include "rls.h"
+#include "terms.h"
 
 #define NDATA		4096	/* distinct records cycled through */
 #define RUN_SEC		0.08	/* target length of one timed run */
@@ -380,6 +382,41 @@ cmd_peak(int runs)
 	return sink == 12345.0;	/* keeps the results alive */
 }
 
+/*
+ * Latency of one Givens step as rls.c chains them: the radius
+ * sqrt(a^2 + b^2), the cosine and sine (divisions), and the next element
+ * of the row (c x - s t), which the next rotation starts from. An update
+ * of p coefficients is a chain of about p + 2 such steps (p rotations,
+ * rho, and the regularisation row one step behind), whatever the vector
+ * width: the bound at small p.
+ */
+static int
+cmd_chain(int runs)
+{
+	const long n = 2000000;
+	volatile double va = 1.0, vx = 0.6, vt = 0.8;
+	double a = va, x = vx, t = vt, b = 0.5, sink = 0;
+	long i;
+	int r;
+
+	for (r = 0; r <= runs; r++) {
+		double t0 = now_sec(), dt;
+
+		for (i = 0; i < n; i++) {
+			double rad = sqrt(a * a + b * b), c = a / rad;
+			double sn = b / rad;
+
+			b = c * x - sn * t;
+		}
+		dt = now_sec() - t0;
+		sink += b;
+		if (r > 0)	/* run 0 is the warm-up */
+			printf("chain ns=%.4f\n", dt * 1e9 / (double)n);
+	}
+	fflush(stdout);
+	return sink == 12345.0;
+}
+
 static char *
 slurp(const char *path, size_t *len)
 {
@@ -566,12 +603,74 @@ cmd_parse(const char *file, const char *confpath, int runs)
 	return 0;
 }
 
+static size_t
+heap_used(void)
+{
+	struct mallinfo2 mi = mallinfo2();
+
+	return mi.uordblks;
+}
+
+/* memory CONF P...: heap bytes (glibc's count, chunk headers included) of
+ * one registry entry for model "b<p>_x" and of its parts. */
+static int
+cmd_memory(const char *confpath, int argc, char **argv)
+{
+	struct conf *conf;
+	struct registry *reg;
+	int a;
+
+	if ((conf = load_conf(confpath)) == NULL ||
+	    (reg = registry_new(conf)) == NULL)
+		return 1;
+	for (a = 0; a < argc; a++) {
+		const struct conf_model *cm;
+		struct reg_entry *e;
+		struct terms *t = NULL;
+		struct model_opts mo;
+		struct model *m;
+		char name[32], err[200];
+		size_t h0, h1, h2, h3;
+		int p = atoi(argv[a]);
+
+		snprintf(name, sizeof(name), "b%d_x", p);
+		if ((cm = conf_find_model(conf, name)) == NULL)
+			return 1;
+		h0 = heap_used();
+		if (conf_model_terms(cm, &t, err, sizeof(err)) != 0)
+			return 1;
+		h1 = heap_used();
+		mo = cm->mo;
+		mo.p = p;
+		if ((m = model_new(&mo)) == NULL)
+			return 1;
+		h2 = heap_used();
+		model_free(m);
+		terms_free(t);
+		h3 = heap_used();
+		if ((e = registry_entry_new(reg, cm, name, err,
+		    sizeof(err))) == NULL)
+			return 1;
+		printf("memory p=%d entry=%zu terms=%zu model_rls=%zu "
+		    "rls=%zu other=%zu\n", p, heap_used() - h3, h1 - h0,
+		    h2 - h1, sizeof(struct rls) + sizeof(double) *
+		    ((size_t)(p + 1) * (size_t)(p + 1) + 2 * (size_t)p),
+		    heap_used() - h3 - (h2 - h0));
+		registry_entry_free(e);
+	}
+	registry_free(reg);
+	conf_free(conf);
+	return 0;
+}
+
 static void
 usage(void)
 {
 	fprintf(stderr, "usage: bench_engine [-r RUNS] engine P...\n"
 	    "       bench_engine [-r RUNS] models N...\n"
 	    "       bench_engine [-r RUNS] peak\n"
+	    "       bench_engine [-r RUNS] chain\n"
+	    "       bench_engine memory CONF P...\n"
 	    "       bench_engine [-r RUNS] parse FILE CONF\n");
 }
 
@@ -595,6 +694,10 @@ main(int argc, char **argv)
 		return cmd_models(argc - 2, argv + 2, runs);
 	if (strcmp(argv[1], "peak") == 0)
 		return cmd_peak(runs);
+	if (strcmp(argv[1], "chain") == 0)
+		return cmd_chain(runs);
+	if (strcmp(argv[1], "memory") == 0 && argc >= 4)
+		return cmd_memory(argv[2], argc - 3, argv + 3);
 	if (strcmp(argv[1], "parse") == 0 && argc == 4)
 		return cmd_parse(argv[2], argv[3], runs);
 	usage();

@@ -232,6 +232,10 @@ def main():
                                "peak"]).splitlines()):
         if "gflops" in d:
             peak.setdefault(d["isa"], []).append(float(d["gflops"]))
+    chain = [float(d["ns"]) for _, d in
+             map(kv, run([bin_engine, "-r", str(RUNS), "chain"])
+                 .splitlines())]
+    step = med(chain)
     best_isa = max(peak, key=lambda k: med(peak[k]))
     best_peak = med(peak[best_isa]) * 1e9
     emit("1. Engine (one core, lambda = 0.99, regularised forgetting "
@@ -240,6 +244,10 @@ def main():
         "%s %.1f (+-%.0f%%)" % (k, med(v), spread(v))
         for k, v in peak.items()) +
         "; ratios below use %s" % best_isa)
+    emit("   one dependent Givens step (sqrt, 2 divisions, multiply-"
+         "subtract): %.1f ns +-%.0f%%; an update is a chain of about p + 2 "
+         "such steps, so rls_update cannot beat 1 / ((p + 2) x %.1f ns): "
+         "the 'chain bound' column" % (step, spread(chain), step))
 
     # -- engine and numpy
     eng, flops = {}, {}
@@ -254,33 +262,35 @@ def main():
                                "3"] + [str(p) for p in ENGINE_P])
                       .splitlines()):
         npy.setdefault(int(d["p"]), []).append(float(d["ns"]))
-    emit("   %-3s %-20s %-20s %-15s %-9s %-8s %-9s %s" % (
-        "p", "rls_update", "model_step", "numpy loop", "x numpy",
-        "flops", "% peak", "target"))
+    emit("   %-3s %-20s %-12s %-20s %-15s %-9s %-8s %-9s %s" % (
+        "p", "rls_update", "chain bound", "model_step", "numpy loop",
+        "x numpy", "flops", "% peak", "target"))
     targets = []
     for p in ENGINE_P:
         u = eng[("rls_update", p)]
         m = eng[("model_step", p)]
         fu, fa = flops[p]
         ru, rm, rn = 1e9 / med(u), 1e9 / med(m), 1e9 / med(npy[p])
+        bound = 1e9 / ((p + 2) * step)
+        why = "chain bound of rls_update alone %s" % fmt_rate(bound)
         tgt = ""
         if p == 4:
             tgt = ">= 20 M/s, >= 200x numpy"
             targets.append(("engine p=4 (model_step)", rm >= 20e6 and
                             rm / rn >= 200, "%s, %.0fx numpy" %
                             (fmt_rate(rm), rm / rn),
-                            ">= 20 M/s and >= 200x numpy"))
+                            ">= 20 M/s and >= 200x numpy", why))
             targets.append(("engine p=4 (rls_update alone)", ru >= 20e6,
                             "%s, %.0fx numpy" % (fmt_rate(ru), ru / rn),
-                            ">= 20 M/s"))
+                            ">= 20 M/s", why))
         if p == 64:
             tgt = ">= 1 M/s"
             targets.append(("engine p=64 (model_step)", rm >= 1e6,
-                            fmt_rate(rm), ">= 1 M/s"))
+                            fmt_rate(rm), ">= 1 M/s", why))
             targets.append(("engine p=64 (rls_update alone)", ru >= 1e6,
-                            fmt_rate(ru), ">= 1 M/s"))
-        emit("   %-3d %-20s %-20s %-15s %-9s %-8s %-9s %s" % (
-            p, "%s +-%.0f%%" % (fmt_rate(ru), spread(u)),
+                            fmt_rate(ru), ">= 1 M/s", why))
+        emit("   %-3d %-20s %-12s %-20s %-15s %-9s %-8s %-9s %s" % (
+            p, "%s +-%.0f%%" % (fmt_rate(ru), spread(u)), fmt_rate(bound),
             "%s +-%.0f%%" % (fmt_rate(rm), spread(m)),
             "%s +-%.0f%%" % (fmt_rate(rn), spread(npy[p])),
             "%.0fx" % (rm / rn), "%.0f" % (fu + fa),
@@ -300,10 +310,12 @@ def main():
         dmn.stop()
     emit()
     emit("Targets")
-    for name, ok, got, want in targets:
-        emit("   %-44s %-7s %s (target %s)" % (
+    for t in targets:
+        name, ok, got, want = t[:4]
+        emit("   %-40s %-7s %s (target %s)%s" % (
             name, "met" if ok is True else "MISSED" if ok is False
-            else ok, got, want))
+            else ok, got, want, "; bound: " + t[4] if len(t) > 4 and
+            ok is False else ""))
     emit()
     emit("load average at end: %.2f %.2f %.2f; total %.0f s" % (
         *os.getloadavg(), time.monotonic() - T_START))
@@ -362,7 +374,12 @@ def main_daemon(dmn, tmp, bin_engine, targets, eng, npy):
     r = best[("unix", 1, 4)]
     n, bad = parse[(4, "exact")]
     targets.append(("ingest, 1 Unix connection, p=4", r >= 3e6,
-                    fmt_rate(r), ">= 3 M/s"))
+                    fmt_rate(r), ">= 3 M/s",
+                    "in-process path (parse + registry + model_step) "
+                    "%.0f ns/record = %s; model_step alone %.0f ns" % (
+                        med(parse[(4, "inproc")]),
+                        fmt_rate(1e9 / med(parse[(4, "inproc")])),
+                        med(eng[("model_step", 4)]))))
     targets.append(("parser exact (same double as strtod)", bad == 0,
                     "%d of %d numbers differ" % (bad, n), "0"))
     emit()
@@ -405,8 +422,21 @@ def main_daemon(dmn, tmp, bin_engine, targets, eng, npy):
         emit("   p=%-2d %6d models: %6.0f B/model; engine triangle alone "
              "(p+1)^2 doubles = %d B" % (p, count, mem[p],
                                          8 * (p + 1) ** 2))
+    parts = {}
+    for _, d in map(kv, run([bin_engine, "memory", conf] +
+                            [str(p) for p, _ in MEMORY_P]).splitlines()):
+        parts[int(d["p"])] = d
+    for p, _ in MEMORY_P:
+        d = parts[p]
+        emit("   p=%-2d heap of one model: %s B = terms %s + model and "
+             "engine %s (engine state %s) + entry, field names %s" % (
+                 p, d["entry"], d["terms"], d["model_rls"], d["rls"],
+                 d["other"]))
+    d = parts[8]
     targets.append(("memory per model, p=8, 100000 models", mem[8] <= 2048,
-                    "%.0f B" % mem[8], "<= 2 KiB"))
+                    "%.0f B" % mem[8], "<= 2 KiB",
+                    "heap of one model %s B, of which compiled terms %s B "
+                    "(a copy per model)" % (d["entry"], d["terms"])))
     emit("   restart time restoring 100000 models: pending: persistence "
          "not merged")
     emit("   longest ingest stall during a checkpoint: pending: "
