@@ -145,7 +145,8 @@ _integration: _all
 	@sh tests/integration/run.sh $(BUILD)
 
 _bench: _all $(BENCH_ENGINE) $(LOADGEN)
-	$(PYTHON) tests/bench/run.py $(BUILD)
+	$(PYTHON) tests/bench/run.py $(BUILD) \
+	    "OPT=$(OPT); rls.c adds $(HOT_CFLAGS); CFLAGS=$(CFLAGS)"
 
 $(LIBCORE): $(CORE_OBJ)
 	@rm -f $@

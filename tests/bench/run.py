@@ -9,12 +9,13 @@ warm-up, with the spread (min-max). Loopback only; every phase is bounded
 in count and time. Nothing here fails on speed: the targets are reported,
 not asserted.
 
-usage: run.py BUILD_DIR
+usage: run.py BUILD_DIR [BUILD_FLAGS]
 """
 import json
 import math
 import os
 import platform
+import shutil
 import socket
 import statistics
 import subprocess
@@ -23,9 +24,11 @@ import tempfile
 import time
 
 BUILD = sys.argv[1] if len(sys.argv) > 1 else "build"
+FLAGS = sys.argv[2] if len(sys.argv) > 2 else "?"
 HERE = os.path.dirname(os.path.abspath(__file__))
 PY = "/usr/bin/python3" if os.path.exists("/usr/bin/python3") else "python3"
 ENGINE_P = [2, 4, 8, 16, 32, 64]
+GROWTH_P = [32, 64, 128, 256]   # for the fitted exponent only
 INGEST_P = [4, 16]
 MEMORY_P = [(4, 100000), (8, 100000), (16, 50000), (32, 20000)]
 RUNS = 5
@@ -97,6 +100,8 @@ def machine():
         for l in open("/proc/cpuinfo"):
             if l.startswith("model name"):
                 cpu = l.split(":", 1)[1].strip()
+            if l.startswith("flags") and " hypervisor" in l:
+                cpu += " (virtual machine)"
                 break
     except OSError:
         pass
@@ -226,21 +231,34 @@ def ingest(d, transport, conns, p, models=1):
 
 def main():
     tmp = tempfile.mkdtemp(prefix="coefd-bench.")
+    try:
+        bench(tmp)
+    finally:
+        shutil.rmtree(tmp, ignore_errors=True)
+    with open(os.path.join(BUILD, "bench-latest.txt"), "w") as f:
+        f.write("\n".join(out_lines) + "\n")
+
+
+def bench(tmp):
     bin_engine = os.path.join(BUILD, "bench_engine")
     cpu, ncpu, kernel, gcc = machine()
     load0 = os.getloadavg()
     emit("coefd benchmark (make bench): medians of %d timed runs after a "
          "warm-up, spread = half the min-max range" % RUNS)
     emit("machine: %s, %d cores, Linux %s, %s" % (cpu, ncpu, kernel, gcc))
+    emit("build: %s" % FLAGS)
     emit("load average at start: %.2f %.2f %.2f" % load0)
     emit()
 
     # -- FMA peak
     peak = {}
+    clone = "?"
     for tag, d in map(kv, run([bin_engine, "-r", str(RUNS),
                                "peak"]).splitlines()):
         if "gflops" in d:
             peak.setdefault(d["isa"], []).append(float(d["gflops"]))
+        elif tag == "clone":
+            clone = d["level"]
     chain = [float(d["ns"]) for _, d in
              map(kv, run([bin_engine, "-r", str(RUNS), "chain"])
                  .splitlines())]
@@ -252,7 +270,8 @@ def main():
     emit("   core peak, GFLOP/s: " + ", ".join(
         "%s %.1f (+-%.0f%%)" % (k, med(v), spread(v))
         for k, v in peak.items()) +
-        "; ratios below use %s" % best_isa)
+        "; ratios below use %s; rotation loops run the %s clone" % (
+            best_isa, clone))
     emit("   one dependent Givens step (sqrt, 2 divisions, multiply-"
          "subtract): %.1f ns +-%.0f%%; an update is a chain of about p + 2 "
          "such steps, so rls_update cannot beat 1 / ((p + 2) x %.1f ns): "
@@ -330,7 +349,6 @@ def main():
     emit()
     emit("load average at end: %.2f %.2f %.2f; total %.0f s" % (
         *os.getloadavg(), time.monotonic() - T_START))
-    run(["rm", "-rf", tmp])
 
 
 def main_daemon(dmn, tmp, bin_engine, targets, eng, npy):
@@ -355,9 +373,10 @@ def main_daemon(dmn, tmp, bin_engine, targets, eng, npy):
 
     emit("2. Ingest into the daemon, pipelined, confirmed by .sync "
          "(records/s; daemon CPU per record)")
-    emit("   reference: parse-only = proto_next alone over the same bytes; "
-         "in-process = proto_next + cmd_handle (registry, terms, "
-         "model_step), no socket")
+    emit("   reference: parse-only = proto_next alone over the same bytes "
+         "(one connection's; 16 connections send the same kind of lines "
+         "for 16 models); in-process = proto_next + cmd_handle (registry, "
+         "terms, model_step), no socket")
     for p in INGEST_P:
         n, bad = parse[(p, "exact")]
         po, ip = parse[(p, "parse")], parse[(p, "inproc")]
@@ -455,11 +474,19 @@ def main_daemon(dmn, tmp, bin_engine, targets, eng, npy):
     emit("5. Cost growth (fitted exponent of cost per record; "
          "least squares on log-log)")
     ps = [p for p in ENGINE_P if p >= 8]
-    for name, src in (("rls_update", "rls_update"),
-                      ("model_step", "model_step")):
-        e = slope(ps, [med(eng[(src, p)]) for p in ps])
-        emit("   %-26s vs p (p = 8..64): exponent %.2f (O(p^2) "
-             "means <= 2)" % (name, e))
+    for tag, d in map(kv, run([bin_engine, "-r", "3", "engine"] +
+                              [str(p) for p in GROWTH_P
+                               if p not in ENGINE_P]).splitlines()):
+        if tag != "flops":
+            eng.setdefault((tag, int(d["p"])), []).append(float(d["ns"]))
+    for name in ("rls_update", "model_step"):
+        e = slope(ps, [med(eng[(name, p)]) for p in ps])
+        e2 = slope(GROWTH_P, [med(eng[(name, p)]) for p in GROWTH_P])
+        emit("   %-26s vs p: exponent %.2f over p = 8..64, %.2f over "
+             "p = %s (%s; O(p^2) means -> 2 from below)" % (
+                 name, e, e2, "..".join(map(str, GROWTH_P[::3])),
+                 ", ".join("p=%d %.1f us" % (p, med(eng[(name, p)]) / 1e3)
+                           for p in GROWTH_P)))
     e = slope(ps, [med(npy[p]) for p in ps])
     emit("   %-26s vs p (p = 8..64): exponent %.2f" % ("numpy loop", e))
     e = slope(INGEST_P, [1 / best[("unix", 1, p)] for p in INGEST_P])
