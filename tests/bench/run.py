@@ -138,6 +138,14 @@ class Daemon:
         with open("/proc/%d/schedstat" % self.proc.pid) as f:
             return int(f.read().split()[0])
 
+    def preempted(self):
+        """Times the daemon was switched out while it could run."""
+        with open("/proc/%d/status" % self.proc.pid) as f:
+            for l in f:
+                if l.startswith("nonvoluntary_ctxt_switches"):
+                    return int(l.split()[1])
+        return 0
+
     def rss(self):
         with open("/proc/%d/statm" % self.proc.pid) as f:
             return int(f.read().split()[1]) * os.sysconf("SC_PAGE_SIZE")
@@ -395,6 +403,8 @@ def main_daemon(dmn, tmp, bin_engine, targets, eng, npy):
                 rates, cpus, b = ingest(dmn, transport, conns, p)
                 r = med(rates)
                 best[(transport, conns, p)] = r
+                if (transport, conns, p) == ("unix", 1, 4):
+                    bpr = b
                 emit("   %-10s %-5d %-3d %-20s %-12s %-11s %-11s %.1f" % (
                     transport, conns, p,
                     "%s +-%.0f%%" % (fmt_rate(r), spread(rates)),
@@ -420,9 +430,11 @@ def main_daemon(dmn, tmp, bin_engine, targets, eng, npy):
     q_idle = {k: d for _, d in loadgen(["query", "-u", dmn.sock, "-p", "4",
                                         "-r", "0", "-q", "1000"])
               for k in [d["kind"]]}
+    pre0, t0 = dmn.preempted(), time.monotonic()
     q_load = {k: d for _, d in loadgen(["query", "-u", dmn.sock, "-p", "4",
                                         "-r", "%.0f" % half, "-q", "1000"])
               for k in [d["kind"]]}
+    pre = (dmn.preempted() - pre0) / (time.monotonic() - t0)
     emit("   %-8s %-22s %-40s" % ("query", "idle p50 / p99",
                                   "under ingest p50 / p99 (ingest rate)"))
     worst = 0
@@ -434,8 +446,13 @@ def main_daemon(dmn, tmp, bin_engine, targets, eng, npy):
             "%.0f / %.0f (%s, asked %s)" % (
                 float(b["p50_us"]), float(b["p99_us"]),
                 fmt_rate(float(b["achieved"])), fmt_rate(half))))
+    emit("   the daemon was preempted %.0f times/s under that load (2 cores "
+         "shared with the load generator's ingest and query threads)" % pre)
     targets.append(("query p99 under half-maximum ingest", worst <= 1000,
-                    "%.0f us" % worst, "<= 1 ms"))
+                    "%.0f us" % worst, "<= 1 ms",
+                    "CPU contention (daemon preempted %.0f times/s) and one "
+                    "64 KiB read of records (~%.1f ms at p=4) ahead of a "
+                    "query" % (pre, 1e3 * 65536 / bpr / r)))
     emit()
 
     # -- memory
