@@ -355,9 +355,8 @@ cmd_peak(int runs)
 
 	__builtin_cpu_init();
 	/* The clone of rls.c's rotation loops the loader picks here. */
-	printf("clone level=%s\n", __builtin_cpu_supports("x86-64-v4") ?
-	    "x86-64-v4" : __builtin_cpu_supports("x86-64-v3") ? "x86-64-v3" :
-	    "baseline");
+	printf("clone level=%s\n", __builtin_cpu_supports("x86-64-v3") ?
+	    "x86-64-v3" : "baseline");
 	for (i = 0; i < sizeof(k) / sizeof(k[0]); i++) {
 		/* Without FMA a multiply and an add are 2 instructions:
 		 * still 2 flops per lane per accumulator update. */
