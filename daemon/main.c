@@ -485,9 +485,14 @@ on_msg(void *arg, struct session *s, const struct proto_msg *msg,
     struct json *j)
 {
 	struct daemon *d = arg;
+	double now;
 
-	return cmd_handle(&d->cmd, s, msg, now_real(), j) ? NET_REPLY :
-	    NET_NOREPLY;
+	/* A record with its own @TIME never uses the clock (the registry
+	 * takes the record's time), and reading it was 4.5% of the
+	 * daemon's time per record at p = 4. */
+	now = msg->kind == PROTO_RECORD && msg->has_time &&
+	    msg->reason == PROTO_NREASONS ? msg->time : now_real();
+	return cmd_handle(&d->cmd, s, msg, now, j) ? NET_REPLY : NET_NOREPLY;
 }
 
 static void

@@ -8,7 +8,12 @@
  * we stop reading from it (the unparsed rest of the current read is kept),
  * resume below half the cap, and close it if it stays over the cap for
  * stuck_ms. Handle memory is freed only in close callbacks (libuv's rule);
- * a connection is never freed inside its own read callback.
+ * a connection is never freed inside its own read callback. Fairness: after
+ * every NET_READ_BUDGET bytes a connection stops reading until the check
+ * phase of the current loop iteration, so a pipelined writer cannot hold
+ * the loop (libuv would otherwise read up to 32 buffers in a row from it,
+ * 2 MiB, tens of milliseconds of records) while a query waits on another
+ * connection.
  */
 #define _GNU_SOURCE	/* struct ucred, SO_PEERCRED */
 #include <arpa/inet.h>
@@ -29,6 +34,7 @@
 #define NET_READ_BUF	65536
 #define NET_REPLY_BUF	(8u << 20)	/* largest single reply line */
 #define NET_TICK_MS	1000
+#define NET_READ_BUDGET	NET_READ_BUF	/* bytes per connection per loop turn */
 
 struct conn;
 
@@ -58,6 +64,8 @@ struct conn {
 	char		*pend;		/* unparsed input kept while paused */
 	size_t		 pendlen, pendoff;
 	int		 paused;	/* reading stopped: output over cap */
+	int		 yielded;	/* reading stopped: budget used this turn */
+	size_t		 turn_bytes;	/* read since it last yielded */
 	int		 drain;		/* close once the output is written */
 	int		 closing;
 	int		 eof;
@@ -78,6 +86,8 @@ struct net {
 	int		 have_unix, have_tcp, have_udp;
 	int		 listeners_open;
 	struct conn	*conns;
+	uv_check_t	 resume;	/* restarts yielded connections */
+	unsigned	 nyielded;
 	struct net_stats st;
 	char		 rbuf[NET_READ_BUF];
 	char		 ubuf[NET_READ_BUF];
@@ -98,6 +108,7 @@ static void conn_process(struct conn *c, const char *buf, size_t len);
 static void read_cb(uv_stream_t *s, ssize_t nread, const uv_buf_t *buf);
 static void alloc_cb(uv_handle_t *h, size_t suggested, uv_buf_t *buf);
 static void maybe_done(struct net *n);
+static void resume_cb(uv_check_t *h);
 
 static uint64_t
 now_ms(const struct net *n)
@@ -326,6 +337,39 @@ read_cb(uv_stream_t *s, ssize_t nread, const uv_buf_t *buf)
 	c->last_ms = now_ms(c->net);
 	c->net->st.bytes_in += (uint64_t)nread;
 	conn_process(c, buf->base, (size_t)nread);
+	c->turn_bytes += (size_t)nread;
+	if (c->turn_bytes >= NET_READ_BUDGET && !c->paused && !c->drain &&
+	    !c->closing && !c->eof) {
+		uv_read_stop(s);
+		c->yielded = 1;
+		c->turn_bytes = 0;
+		if (c->net->nyielded++ == 0)
+			uv_check_start(&c->net->resume, resume_cb);
+	}
+}
+
+/* Check phase: every connection that used its budget reads again. */
+static void
+resume_cb(uv_check_t *h)
+{
+	struct net *n = h->data;
+	struct conn *c;
+	int rc;
+
+	for (c = n->conns; c != NULL; c = c->next) {
+		if (!c->yielded)
+			continue;
+		c->yielded = 0;
+		if (c->paused || c->drain || c->closing || c->eof)
+			continue;
+		if ((rc = uv_read_start(&c->u.s, alloc_cb, read_cb)) != 0 &&
+		    rc != UV_EALREADY) {
+			conn_log(c, "cannot resume reading", rc);
+			conn_close(c);
+		}
+	}
+	n->nyielded = 0;
+	uv_check_stop(h);
 }
 
 static void
@@ -785,6 +829,10 @@ net_start(uv_loop_t *loop, const struct net_opts *o,
 	n->loop = loop;
 	n->o = *o;
 	n->h = *h;
+	/* Never fails on Unix; closed by the owner's final uv_walk. */
+	uv_check_init(loop, &n->resume);
+	n->resume.data = n;
+	uv_unref((uv_handle_t *)&n->resume);
 	n->o.unix_path = NULL;
 	n->o.tcp_host = n->o.udp_host = NULL;
 	if (o->unix_path != NULL)
