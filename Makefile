@@ -46,6 +46,7 @@ CORE_SRC = \
 	daemon/err.c \
 	daemon/json.c \
 	daemon/model.c \
+	daemon/persist.c \
 	daemon/proto.c \
 	daemon/render.c \
 	daemon/rls.c \
