@@ -56,7 +56,8 @@ CORE_SRC = \
 DAEMON_SRC = \
 	daemon/log.c \
 	daemon/main.c \
-	daemon/net.c
+	daemon/net.c \
+	daemon/state.c
 CLIENT_SRC = \
 	client/csv.c \
 	client/fit.c \
