@@ -72,6 +72,7 @@ TEST_SRC = \
 	tests/check_main.c \
 	tests/check_model.c \
 	tests/check_nist.c \
+	tests/check_persist.c \
 	tests/check_proto.c \
 	tests/check_recursive.c \
 	tests/check_rls.c \

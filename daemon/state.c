@@ -1777,6 +1777,11 @@ ckpt_finish(struct state *st, int ok)
 		st->jtail = prev;
 		if (st->jhead == NULL)
 			st->jtail = NULL;
+		if (st->jfailing && st->jhead == NULL && !st->jbusy) {
+			/* Nothing left to retry: the checkpoint holds it. */
+			st->jfailing = 0;
+			uv_timer_stop(&st->j_retry);
+		}
 		ls->at = now_real();
 		ls->models = st->ck.nenc;
 		ls->bytes = st->ck.bytes;

@@ -28,6 +28,7 @@ main(void)
 	srunner_add_suite(sr, recursive_suite());
 	srunner_add_suite(sr, dist_suite());
 	srunner_add_suite(sr, conf_suite());
+	srunner_add_suite(sr, persist_suite());
 	srunner_run_all(sr, CK_NORMAL);
 	nfail = srunner_ntests_failed(sr);
 	nrun = srunner_ntests_run(sr);

@@ -16,5 +16,6 @@ Suite *nist_suite(void);
 Suite *recursive_suite(void);
 Suite *dist_suite(void);
 Suite *conf_suite(void);
+Suite *persist_suite(void);
 
 #endif
