@@ -251,7 +251,7 @@ cmd_sync(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
 		s->wait_kind = CMD_WAIT_SYNC;
 		s->wait_ticket = t;
 		s->wait_line = msg->line;
-		return CMD_DEFER;
+		return cmd_deferred(c, s, j);
 	}
 	return sync_reply(s, msg->line, j);
 }
@@ -567,7 +567,7 @@ cmd_save(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
 	s->wait_kind = CMD_WAIT_SAVE;
 	s->wait_ticket = t;
 	s->wait_line = msg->line;
-	return CMD_DEFER;
+	return cmd_deferred(c, s, j);
 }
 
 static int
@@ -759,12 +759,12 @@ cmd_deferred(struct cmd_ctx *c, struct session *s, struct json *j)
 	if (kind == CMD_WAIT_SYNC) {
 		if (rc == 0)
 			return sync_reply(s, s->wait_line, j);
-		err_printf(d, sizeof(d), "records applied in memory but not "
-		    "on disk yet (%s); send .sync again", err);
+		err_printf(d, sizeof(d), "not on disk yet: %s; the records are "
+		    "applied in memory; send .sync again later", err);
 		return reject(c, j, s->wait_line, PROTO_R_BUSY, d);
 	}
 	if (rc != 0) {
-		err_printf(d, sizeof(d), "checkpoint failed: %s", err);
+		err_printf(d, sizeof(d), "checkpoint not written: %s", err);
 		return reject(c, j, s->wait_line, PROTO_R_BUSY, d);
 	}
 	ok_reply(j, "save", NULL, s->wait_line);

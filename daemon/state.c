@@ -1050,6 +1050,36 @@ jqueue(struct state *st, struct jbuf *b)
 	st->jqueued += b->len;
 }
 
+/* Drop queued buffers of segments a checkpoint covers (seq < jseg_lo). */
+static void
+jprune(struct state *st)
+{
+	struct jbuf *b, *prev = NULL, *next;
+
+	for (b = st->jhead; b != NULL; b = next) {
+		next = b->next;
+		if (b->seq >= st->jseg_lo) {
+			prev = b;
+			continue;
+		}
+		if (prev != NULL)
+			prev->next = next;
+		else
+			st->jhead = next;
+		st->jqueued -= b->len;
+		jbuf_free(b);
+	}
+	st->jtail = prev;
+	if (st->jhead == NULL) {
+		st->jtail = NULL;
+		if (st->jfailing && !st->jbusy) {
+			/* Nothing left to retry: a checkpoint holds it all. */
+			st->jfailing = 0;
+			uv_timer_stop(&st->j_retry);
+		}
+	}
+}
+
 /* Drop every queued buffer and stop journaling until the next checkpoint
  * (whose segment is then marked as following a gap). */
 static void
@@ -1288,11 +1318,12 @@ jwork_after(uv_work_t *req, int status)
 		}
 	} else {
 		seg_name(name, sizeof(name), w->seq);
-		snprintf(st->jerr, sizeof(st->jerr), "journal %s %s/%s: %s",
-		    w->what != NULL ? w->what : "write", st->dir, name,
-		    strerror(w->err != 0 ? w->err : ECANCELED));
-		if (w->upto > st->failed)
-			st->failed = w->upto;
+		snprintf(st->jerr, sizeof(st->jerr), "%s (journal %s %s/%s)",
+		    strerror(w->err != 0 ? w->err : ECANCELED),
+		    w->what != NULL ? w->what : "write", st->dir, name);
+		/* The journal is written in order: nothing behind the failed
+		 * write can be on disk before it. */
+		st->failed = st->appended;
 		for (b = w->list; b->next != NULL; b = b->next)
 			;
 		b->next = st->jhead;
@@ -1302,7 +1333,10 @@ jwork_after(uv_work_t *req, int status)
 		st->jqueued += w->bytes;
 		st->jretry_ms = backoff(st->jretry_ms);
 		st->jfailing = 1;
-		if (st->jqueued > JOURNAL_BACKLOG_MAX) {
+		jprune(st);
+		if (!st->jfailing) {
+			/* Only covered segments failed: nothing to retry. */
+		} else if (st->jqueued > JOURNAL_BACKLOG_MAX) {
 			jdrop(st, "more than 64 MiB could not be written");
 		} else {
 			log_warnx("state: %s; records stay applied in memory; "
@@ -1607,10 +1641,10 @@ cwork_after(uv_work_t *req, int status)
 		st->ck.opened = 0;
 	if (w->err != 0 && !st->ck.failed) {
 		st->ck.failed = 1;
-		snprintf(st->ck.err, sizeof(st->ck.err), "checkpoint %s %s/%s: "
-		    "%s", w->what, st->dir, w->last && strcmp(w->what,
-		    "fsync of the directory") == 0 ? CKPT_NAME : CKPT_TMP,
-		    strerror(w->err));
+		snprintf(st->ck.err, sizeof(st->ck.err), "%s (checkpoint %s "
+		    "%s/%s)", strerror(w->err), w->what, st->dir, w->last &&
+		    strcmp(w->what, "fsync of the directory") == 0 ?
+		    CKPT_NAME : CKPT_TMP);
 	}
 	if (st->ck.failed) {
 		stop_encoding(st);
@@ -1745,7 +1779,6 @@ static void
 ckpt_finish(struct state *st, int ok)
 {
 	struct ckpt_stats *ls = &st->last;
-	struct jbuf *b, *prev = NULL, *next;
 
 	stop_encoding(st);
 	chunks_free(st->ck.head);
@@ -1761,27 +1794,7 @@ ckpt_finish(struct state *st, int ok)
 		if (st->jon && st->ck.seq > st->jseg_lo)
 			st->jseg_lo = st->ck.seq;
 		/* Queued bytes of segments the checkpoint covers are moot. */
-		for (b = st->jhead; b != NULL; b = next) {
-			next = b->next;
-			if (b->seq >= st->ck.seq) {
-				prev = b;
-				continue;
-			}
-			if (prev != NULL)
-				prev->next = next;
-			else
-				st->jhead = next;
-			st->jqueued -= b->len;
-			jbuf_free(b);
-		}
-		st->jtail = prev;
-		if (st->jhead == NULL)
-			st->jtail = NULL;
-		if (st->jfailing && st->jhead == NULL && !st->jbusy) {
-			/* Nothing left to retry: the checkpoint holds it. */
-			st->jfailing = 0;
-			uv_timer_stop(&st->j_retry);
-		}
+		jprune(st);
 		ls->at = now_real();
 		ls->models = st->ck.nenc;
 		ls->bytes = st->ck.bytes;
@@ -1807,8 +1820,13 @@ ckpt_finish(struct state *st, int ok)
 		snprintf(st->cerr, sizeof(st->cerr), "%s", st->ck.err);
 		st->cretry_ms = backoff(st->cretry_ms);
 		st->cfailing = 1;
-		log_warnx("state: %s; the last good checkpoint and the journal "
-		    "are kept%s", st->cerr, st->shutting ? "" : "; retrying");
+		if (st->shutting)
+			log_warnx("state: %s; the last good checkpoint and the "
+			    "journal are kept", st->cerr);
+		else
+			log_warnx("state: %s; the last good checkpoint and the "
+			    "journal are kept; retrying in %u ms", st->cerr,
+			    st->cretry_ms);
 		if (!st->shutting && !st->ck_pending)
 			uv_timer_start(&st->ck_retry, ckretry_cb,
 			    st->cretry_ms, 0);
@@ -2121,7 +2139,8 @@ state_sync_ticket(struct state *st)
 /*
  * state_wait: where a ticket stands: 0 done (journal entries on disk, or
  * covered by a checkpoint; the checkpoint written), 1 pending, E_IO with
- * the reason in msg when the write failed (a later success clears it).
+ * the reason in msg when the write failed or the journal is failing (a
+ * later success makes the same ticket done).
  */
 int
 state_wait(struct state *st, int kind, uint64_t ticket, char *msg,
@@ -2130,7 +2149,7 @@ state_wait(struct state *st, int kind, uint64_t ticket, char *msg,
 	if (kind == CMD_WAIT_SYNC) {
 		if (st->durable >= ticket)
 			return 0;
-		if (st->failed >= ticket) {
+		if (st->failed >= ticket || st->jfailing || st->jsuspended) {
 			err_printf(msg, len, "%s", st->jsuspended ?
 			    "journal suspended after write failures until "
 			    "the next checkpoint" : st->jerr);

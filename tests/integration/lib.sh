@@ -27,6 +27,9 @@ trap cleanup EXIT INT TERM
 # start_daemon CONF: start coefd in the background (state in $STATE), wait
 # for its socket; the log is appended to $TMP/coefd.log.
 start_daemon() {
+	# A daemon killed with SIGKILL leaves its socket file behind: without
+	# this the wait below could see it before the new daemon binds.
+	rm -f "$SOCK"
 	"$COEFD" -c "$1" -s "$SOCK" --state-dir "$STATE" >>"$TMP/coefd.log" 2>&1 &
 	DPID=$!
 	i=0
