@@ -627,6 +627,7 @@ main(int argc, char **argv)
 	if ((rc = state_open(&d.loop, &so, d.reg, d.conf, &sh, &d.st, &rep,
 	    err, sizeof(err))) != 0) {
 		log_errx("%s", err);
+		uv_loop_close(&d.loop);
 		registry_free(d.reg);
 		conf_free(d.conf);
 		free(d.conf_text);
