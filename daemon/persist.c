@@ -102,12 +102,12 @@ static const uint32_t crc_table[256] = {
 };
 
 /*
- * persist_crc32c: continue the CRC-32C crc (0 to start) over buf[0..len).
- * Byte-at-a-time table lookup (Sarwate 1988); the register is kept
- * complemented between calls, so crc(a || b) = crc(crc(0, a), b).
+ * persist_crc32c_sw: persist_crc32c by byte-at-a-time table lookup
+ * (Sarwate 1988), on any machine. The register is kept complemented
+ * between calls, so crc(a || b) = crc(crc(0, a), b).
  */
 uint32_t
-persist_crc32c(uint32_t crc, const void *buf, size_t len)
+persist_crc32c_sw(uint32_t crc, const void *buf, size_t len)
 {
 	const uint8_t *p = buf;
 
@@ -115,6 +115,41 @@ persist_crc32c(uint32_t crc, const void *buf, size_t len)
 	while (len--)
 		crc = crc_table[(crc ^ *p++) & 0xff] ^ (crc >> 8);
 	return ~crc;
+}
+
+#if defined(__x86_64__) && defined(__GNUC__)
+/*
+ * The same CRC with the SSE4.2 crc32 instruction, which implements exactly
+ * this polynomial (Intel SDM, CRC32), 8 bytes at a time: about 20 times
+ * the table's speed. Chosen at run time (persist_crc32c).
+ */
+__attribute__((target("sse4.2")))
+static uint32_t
+crc32c_hw(uint32_t crc, const void *buf, size_t len)
+{
+	const uint8_t *p = buf;
+	uint64_t c = ~crc, v;
+
+	for (; len >= 8; p += 8, len -= 8) {
+		memcpy(&v, p, 8);
+		c = __builtin_ia32_crc32di(c, v);
+	}
+	while (len--)
+		c = __builtin_ia32_crc32qi((uint32_t)c, *p++);
+	return ~(uint32_t)c;
+}
+#endif
+
+/* persist_crc32c: continue the CRC-32C crc (0 to start) over buf[0..len):
+ * the instruction where the CPU has it, else the table. */
+uint32_t
+persist_crc32c(uint32_t crc, const void *buf, size_t len)
+{
+#if defined(__x86_64__) && defined(__GNUC__)
+	if (__builtin_cpu_supports("sse4.2"))
+		return crc32c_hw(crc, buf, len);
+#endif
+	return persist_crc32c_sw(crc, buf, len);
 }
 
 /* ---- little-endian writer and reader ---- */
@@ -142,12 +177,31 @@ put_bytes(struct wr *w, const void *p, size_t len)
 	w->n += len;
 }
 
+#if defined(__BYTE_ORDER__) && __BYTE_ORDER__ == __ORDER_LITTLE_ENDIAN__ && \
+    defined(__FLOAT_WORD_ORDER__) && \
+    __FLOAT_WORD_ORDER__ == __ORDER_LITTLE_ENDIAN__
+#define HOST_IS_LE	1	/* the host's byte order is the files' */
+#else
+#define HOST_IS_LE	0
+#endif
+
 static void
 put_le(struct wr *w, uint64_t v, int nbytes)
 {
 	uint8_t b[8];
 	int i;
 
+	if (w->buf == NULL) {
+		w->n += (size_t)nbytes;
+		return;
+	}
+	if (HOST_IS_LE && !w->bad && w->cap - w->n >= 8) {
+		/* Store 8 bytes, keep nbytes: the rest is overwritten by
+		 * the next field or lies past the block's end. */
+		memcpy(w->buf + w->n, &v, 8);
+		w->n += (size_t)nbytes;
+		return;
+	}
 	for (i = 0; i < nbytes; i++)
 		b[i] = (uint8_t)(v >> (8 * i));
 	put_bytes(w, b, (size_t)nbytes);
@@ -172,6 +226,11 @@ put_f64s(struct wr *w, const double *a, size_t n)
 {
 	size_t i;
 
+	if (HOST_IS_LE) {
+		/* The host's layout is the file's: one copy. */
+		put_bytes(w, a, n * sizeof(double));
+		return;
+	}
 	for (i = 0; i < n; i++)
 		put_f64(w, a[i]);
 }
@@ -251,8 +310,15 @@ get_f64(struct rd *r)
 static void
 get_f64s(struct rd *r, double *a, size_t n)
 {
+	const uint8_t *b;
 	size_t i;
 
+	if (HOST_IS_LE && n > 0 && !r->bad &&
+	    n <= (r->len - r->off) / sizeof(double)) {
+		b = get_bytes(r, n * sizeof(double));
+		memcpy(a, b, n * sizeof(double));
+		return;
+	}
 	for (i = 0; i < n; i++)
 		a[i] = get_f64(r);
 }
@@ -648,30 +714,40 @@ persist_model_size(const struct reg_entry *e, size_t *len)
 }
 
 /*
- * persist_model_encode: write e's block into out[0..len), len exactly the
- * size from persist_model_size: magic "MODL", payload length (u32),
- * CRC-32C of the first 8 bytes and the payload (u32), payload. E_STATE as
- * for _size; E_ARG when len is not that size. e is not changed.
+ * persist_model_encode: write e's block into out[0..cap) in one pass and
+ * set *len to its size: magic "MODL", payload length (u32), CRC-32C of the
+ * first 8 bytes and the payload (u32), payload. E_LIMIT when cap is too
+ * small (*len is then the size needed; out holds nothing usable); E_STATE
+ * as for persist_model_size. e is not changed.
  */
 int
-persist_model_encode(const struct reg_entry *e, uint8_t *out, size_t len)
+persist_model_encode(const struct reg_entry *e, uint8_t *out, size_t cap,
+    size_t *len)
 {
 	struct wr w;
 	uint32_t crc;
-	size_t need;
 	int rc;
 
-	if ((rc = persist_model_size(e, &need)) != 0)
-		return rc;
-	if (len != need)
-		return E_ARG;
+	if (!entry_encodable(e))
+		return E_STATE;
+	if (cap < PERSIST_BLOCK_HDR_LEN) {
+		if ((rc = persist_model_size(e, len)) != 0)
+			return rc;
+		return E_LIMIT;
+	}
 	w.buf = out + PERSIST_BLOCK_HDR_LEN;
-	w.cap = len - PERSIST_BLOCK_HDR_LEN;
+	w.cap = cap - PERSIST_BLOCK_HDR_LEN;
 	w.n = 0;
 	w.bad = 0;
 	model_body(&w, e);
-	if (w.bad || w.n != w.cap)
+	if (w.bad) {
+		if ((rc = persist_model_size(e, len)) != 0)
+			return rc;
+		return E_LIMIT;
+	}
+	if (w.n > UINT32_MAX)
 		return E_STATE;
+	*len = PERSIST_BLOCK_HDR_LEN + w.n;
 	memcpy(out, block_magic, 4);
 	wr_u32_at(out + 4, (uint32_t)w.n);
 	crc = persist_crc32c(0, out, 8);

@@ -80,6 +80,8 @@ struct persist_jentry {
 /* CRC-32C (Castagnoli, reflected polynomial 0x82F63B78), as in RFC 3720
  * B.4: start with crc = 0, feed buffers in order. */
 uint32_t persist_crc32c(uint32_t crc, const void *buf, size_t len);
+/* persist_crc32c_sw: the same, always by table (no CPU instruction). */
+uint32_t persist_crc32c_sw(uint32_t crc, const void *buf, size_t len);
 
 /* Checkpoint header and trailer. */
 void	 persist_ckpt_hdr_encode(const struct persist_ckpt_hdr *h,
@@ -96,9 +98,9 @@ int	 persist_ckpt_is_end(const uint8_t *buf, size_t len);
 
 /* persist_model_size: bytes of e's block, framing included. */
 int	 persist_model_size(const struct reg_entry *e, size_t *len);
-/* persist_model_encode: e's block into out[0..len) (len from _size). */
+/* persist_model_encode: e's block into out[0..cap); *len its size. */
 int	 persist_model_encode(const struct reg_entry *e, uint8_t *out,
-	    size_t len);
+	    size_t cap, size_t *len);
 /* persist_model_check: framing and CRC of the block at buf; its length. */
 int	 persist_model_check(const uint8_t *buf, size_t len, size_t *blocklen);
 /* persist_model_decode: a new entry (not in any registry) from a block. */

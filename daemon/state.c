@@ -1458,19 +1458,31 @@ ck_room(struct state *st, size_t n)
 	return c->data + c->len;
 }
 
+/* Encode e at the end of the chunk list: in place when it fits (one
+ * pass), else into a new chunk big enough. */
 static int
 encode_one(struct state *st, struct reg_entry *e)
 {
-	uint8_t *p = NULL;
+	struct chunk *c = st->ck.tail;
+	uint8_t *p;
 	size_t n = 0;
 	int rc;
 
-	if ((rc = persist_model_size(e, &n)) != 0 ||
-	    (p = ck_room(st, n)) == NULL ||
-	    (rc = persist_model_encode(e, p, n)) != 0) {
+	if (c != NULL)
+		rc = persist_model_encode(e, c->data + c->len, c->cap - c->len,
+		    &n);
+	else if ((rc = persist_model_size(e, &n)) == 0)
+		rc = E_LIMIT;
+	if (rc == E_LIMIT) {
+		if ((p = ck_room(st, n)) == NULL)
+			rc = E_NOMEM;
+		else
+			rc = persist_model_encode(e, p, st->ck.tail->cap -
+			    st->ck.tail->len, &n);
+	}
+	if (rc != 0) {
 		snprintf(st->ck.err, sizeof(st->ck.err), "model \"%s\" cannot "
-		    "be encoded: %s", e->name, err_str(rc != 0 ? rc :
-		    E_NOMEM));
+		    "be encoded: %s", e->name, err_str(rc));
 		return -1;
 	}
 	st->ck.tail->len += n;
