@@ -341,6 +341,8 @@ struct rctx {
 	uint64_t	*segs;		/* segment numbers, sorted */
 	size_t		 nsegs;
 	int		 have_tmp;
+	int		 jstop;		/* replay stopped early (damage) */
+	int		 last_gone;	/* the last segment was removed */
 	unsigned	 warned;
 	double		 xbuf[PROTO_MAX_VALUES + 1];
 };
@@ -721,12 +723,17 @@ replay_segment(struct rctx *rc, uint64_t seq, int last, char *errbuf,
 		unmap_file(&mf);
 		return E_VERSION;
 	}
-	if (r == PERSIST_SHORT && last && all_zero(mf.p, mf.len)) {
-		/* Created, header never written: a crash at the start. */
-		say(rc, LOG_LVL_NOTICE, "%s/%s: empty segment (torn at "
-		    "creation); ignored", rc->dir, name);
+	if (r == PERSIST_SHORT && last) {
+		/* Created, header not (all) written: a crash at its start.
+		 * Removed, and its number used again, so the numbering has
+		 * no hole. */
+		say(rc, LOG_LVL_NOTICE, "%s/%s: segment cut inside its header "
+		    "(torn at creation); %s", rc->dir, name, rc->dry ?
+		    "ignored" : "removed");
 		rc->rep->torn++;
 		unmap_file(&mf);
+		if (!rc->dry && unlinkat(rc->dirfd, name, 0) == 0)
+			rc->last_gone = 1;
 		return 0;
 	}
 	if (r != 0 || h.seq != seq) {
@@ -837,6 +844,7 @@ replay(struct rctx *rc, char *errbuf, size_t errlen)
 aside_rest:
 	if (stop) {
 		rc->rep->damage = 1;
+		rc->jstop = 1;
 		for (i = first; i < rc->nsegs; i++) {
 			seg_name(name, sizeof(name), rc->segs[i]);
 			aside(rc, name);
@@ -874,7 +882,7 @@ restore(struct rctx *rc, char *errbuf, size_t errlen)
 		registry_set_conf(rc->reg, rc->conf, &rc->rep->kept,
 		    &rc->rep->stale, &rc->rep->orphan);
 	last = rc->nsegs > 0 ? rc->segs[rc->nsegs - 1] : 0;
-	rc->rep->next_seq = last + 1;
+	rc->rep->next_seq = rc->last_gone ? last : last + 1;
 	if (rc->hdr_ok && rc->ckpt_seq > rc->rep->next_seq)
 		rc->rep->next_seq = rc->ckpt_seq;
 	if (rc->rep->next_seq == 0)
@@ -2022,7 +2030,9 @@ state_open(uv_loop_t *loop, const struct state_opts *o, struct registry *reg,
 		goto fail;
 	/* The first checkpoint rotates to next_seq. */
 	st->jseq = st->rep.next_seq - 1;
-	st->jgap = st->rep.damage;
+	/* Segments could not all be replayed: this run's first segment must
+	 * not be replayed on top of the old checkpoint either. */
+	st->jgap = rc.jstop;
 	if ((r = init_handles(st)) != 0) {
 		err_printf(errbuf, errlen, "state: %s", uv_strerror(r));
 		r = E_IO;

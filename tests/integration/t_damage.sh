@@ -191,6 +191,23 @@ start_daemon "$TMP/d.conf"
 check "  the last (torn) record is dropped, the rest replayed" \
     [ "$(jget "$(get flow_1)" 'd["n_seen"]')" = 149 ]
 check "  logged as cut" grep -q "$seg: offset [0-9]*: torn tail of [0-9]* bytes (an interrupted write); cut" "$TMP/coefd.log"
+# A segment torn at its creation (a crash inside its first write): it is
+# removed and its number reused, so a later replay has no hole.
+feed flow_1 20 9 >/dev/null
+kill -KILL "$DPID"; wait "$DPID" 2>/dev/null; DPID=
+seg=$(ls "$STATE" | grep journal | tail -n 1)
+next=$(printf 'journal.%016x' $((0x${seg#journal.} + 1)))
+head -c 20 "$STATE/$seg" >"$STATE/$next"
+verify "$STATE"
+check "segment torn at creation: --verify-state exits 0" [ $? -eq 0 ]
+start_daemon "$TMP/d.conf"
+check "  removed at start" grep -q "$next: segment cut inside its header (torn at creation); removed" "$TMP/coefd.log"
+feed flow_1 10 10 >/dev/null
+kill -KILL "$DPID"; wait "$DPID" 2>/dev/null; DPID=
+verify "$STATE"
+check "  the next run's journal has no hole" [ $? -eq 0 ]
+start_daemon "$TMP/d.conf"
+check "  every record is there" [ "$(jget "$(get flow_1)" 'd["n_seen"]')" = 179 ]
 stop_daemon
 
 # 8. A directory the daemon may not write: it serves from memory with the
