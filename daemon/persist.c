@@ -805,6 +805,37 @@ persist_resync(const uint8_t *buf, size_t len, size_t from)
 	return len;
 }
 
+/*
+ * persist_model_peek_name: the model name a block starts with, read
+ * without trusting the block (for messages about a damaged one): 0 when
+ * the bytes after the block header look like a model name (1..64 bytes of
+ * letters, digits, '_', '.', '-'), copied NUL-terminated into name (at
+ * least MODEL_NAME_MAX + 1 bytes); E_CORRUPT otherwise.
+ */
+int
+persist_model_peek_name(const uint8_t *buf, size_t len, char *name)
+{
+	size_t n, i;
+
+	if (len < PERSIST_BLOCK_HDR_LEN + 2)
+		return E_CORRUPT;
+	n = (size_t)buf[PERSIST_BLOCK_HDR_LEN] |
+	    (size_t)buf[PERSIST_BLOCK_HDR_LEN + 1] << 8;
+	if (n < 1 || n > MODEL_NAME_MAX || n > len - PERSIST_BLOCK_HDR_LEN - 2)
+		return E_CORRUPT;
+	for (i = 0; i < n; i++) {
+		unsigned char c = buf[PERSIST_BLOCK_HDR_LEN + 2 + i];
+
+		if (!((c >= 'a' && c <= 'z') || (c >= 'A' && c <= 'Z') ||
+		    (c >= '0' && c <= '9') || c == '_' || c == '.' ||
+		    c == '-'))
+			return E_CORRUPT;
+		name[i] = (char)c;
+	}
+	name[n] = '\0';
+	return 0;
+}
+
 static void
 get_alarm_opts(struct rd *r, struct alarm_opts *a)
 {

@@ -106,6 +106,8 @@ int	 persist_model_check(const uint8_t *buf, size_t len, size_t *blocklen);
 /* persist_model_decode: a new entry (not in any registry) from a block. */
 int	 persist_model_decode(const uint8_t *buf, size_t len,
 	    struct reg_entry **out, char *errbuf, size_t errlen);
+/* persist_model_peek_name: the name a (maybe damaged) block starts with. */
+int	 persist_model_peek_name(const uint8_t *buf, size_t len, char *name);
 /* persist_resync: next offset >= from holding a valid block or trailer. */
 size_t	 persist_resync(const uint8_t *buf, size_t len, size_t from);
 

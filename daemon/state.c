@@ -459,6 +459,19 @@ scan_dir(struct rctx *rc, char *errbuf, size_t errlen)
 	return 0;
 }
 
+/* " (model \"NAME\")" when a damaged block still shows a plausible name,
+ * so the log says which model was lost; else "". */
+static const char *
+block_name(const uint8_t *b, size_t len, char *buf, size_t blen)
+{
+	char nm[MODEL_NAME_MAX + 1];
+
+	buf[0] = '\0';
+	if (persist_model_peek_name(b, len, nm) == 0)
+		snprintf(buf, blen, " (model \"%s\", not restored)", nm);
+	return buf;
+}
+
 /* Read models.ckpt into the registry. Fatal only for a newer format, an
  * unreadable file or no memory; damage is reported and set aside. */
 static int
@@ -467,7 +480,7 @@ load_ckpt(struct rctx *rc, char *errbuf, size_t errlen)
 	struct persist_ckpt_hdr h;
 	struct reg_entry *e;
 	struct mapped mf;
-	char err[200];
+	char err[200], who[MODEL_NAME_MAX + 40];
 	size_t off, bl;
 	uint64_t nblocks = 0, n;
 	int r, ended = 0, damage = 0, truncated = 0;
@@ -537,8 +550,9 @@ load_ckpt(struct rctx *rc, char *errbuf, size_t errlen)
 			}
 			if (r != 0) {
 				say(rc, LOG_LVL_ERR, "%s/%s: offset %zu: model "
-				    "block cannot be restored: %s", rc->dir,
-				    path, off, err);
+				    "block cannot be restored: %s%s", rc->dir,
+				    path, off, err, block_name(b, bl, who,
+				    sizeof(who)));
 				rc->rep->damaged++;
 				damage = 1;
 			} else if (registry_adopt(rc->reg, e) != 0) {
@@ -563,8 +577,8 @@ load_ckpt(struct rctx *rc, char *errbuf, size_t errlen)
 			break;
 		}
 		say(rc, LOG_LVL_ERR, "%s/%s: offset %zu: model block is "
-		    "damaged (magic, length or checksum); skipped", rc->dir,
-		    path, off);
+		    "damaged (magic, length or checksum); skipped%s", rc->dir,
+		    path, off, block_name(b, left, who, sizeof(who)));
 		rc->rep->damaged++;
 		damage = 1;
 		off = persist_resync(mf.p, mf.len, off + 1);

@@ -570,6 +570,13 @@ START_TEST(test_persist_every_bit_flip_detected)
 	ck_assert_int_eq(persist_model_decode(b, len, &d, err, sizeof(err)),
 	    0);
 	registry_entry_free(d);
+	/* A damaged block may still show its name (for the log). */
+	b[len - 1] ^= 1;
+	ck_assert_int_eq(persist_model_peek_name(b, len, err), 0);
+	ck_assert_str_eq(err, "s_1");
+	b[PERSIST_BLOCK_HDR_LEN + 2] = ' ';
+	ck_assert_int_eq(persist_model_peek_name(b, len, err), E_CORRUPT);
+	ck_assert_int_eq(persist_model_peek_name(b, 13, err), E_CORRUPT);
 	free(b);
 	registry_free(r);
 	conf_free(c);

@@ -82,6 +82,7 @@ cp "$STATE/models.ckpt" "$TMP/bad.ckpt"
 start_daemon "$TMP/d.conf"
 check "  the daemon starts and logs file and offset" \
     grep -q "models.ckpt: offset $b2: model block is damaged" "$TMP/coefd.log"
+check "  and which model is lost" grep -q "(model \"$m2\", not restored)" "$TMP/coefd.log"
 n=$(printf '.list\n' | send)
 check "  the two intact models are restored" [ "$(jget "$n" 'd["count"]')" = 2 ]
 check "  bit for bit" same_as $m1 $m3
