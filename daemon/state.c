@@ -162,7 +162,12 @@ struct state {
 	struct jbuf	*jhead, *jtail;
 	size_t		 jqueued;	/* bytes in jhead.. */
 	uint64_t	 appended;	/* tickets handed out */
-	uint64_t	 durable;	/* tickets on disk */
+	uint64_t	 durable;	/* tickets safe: see set_durable */
+	uint64_t	 written;	/* tickets whose journal write succeeded */
+	uint64_t	 covered;	/* tickets in a written checkpoint */
+	uint64_t	 gap_seq;	/* a segment after a gap, not yet closed
+					 * by a checkpoint (0: none) */
+	uint64_t	 gap_from;	/* its first ticket */
 	uint64_t	 failed;	/* tickets whose write failed */
 	int		 jbusy;
 	int		 jfailing;
@@ -1037,6 +1042,21 @@ backoff(unsigned cur)
 
 /* ---- journal ---- */
 
+/*
+ * What is safe: entries in a written checkpoint, and entries written to
+ * the journal, except those in a segment that follows a gap while no
+ * checkpoint has closed the gap (a replay would stop at that segment).
+ */
+static void
+set_durable(struct state *st)
+{
+	uint64_t w = st->written;
+
+	if (st->gap_seq != 0 && w >= st->gap_from)
+		w = st->gap_from - 1;
+	st->durable = w > st->covered ? w : st->covered;
+}
+
 static struct jbuf *
 jbuf_new(uint64_t seq, unsigned flags, size_t cap)
 {
@@ -1115,6 +1135,9 @@ jdrop(struct state *st, const char *why)
 	}
 	st->jhead = st->jtail = NULL;
 	st->jqueued = 0;
+	/* Nothing is left to retry; the alarm stays up while suspended. */
+	st->jfailing = 0;
+	uv_timer_stop(&st->j_retry);
 	if (!st->jsuspended)
 		log_errx("state %s: journal suspended until the next "
 		    "checkpoint: %s; records are applied in memory but not "
@@ -1177,6 +1200,9 @@ jappend(struct state *st, const struct persist_jentry *je)
 	b->upto = st->appended;
 	st->jqueued += n;
 	st->jentries++;
+	if (st->jqueued > JOURNAL_BACKLOG_MAX)
+		jdrop(st, st->jfailing ? "more than 64 MiB could not be "
+		    "written" : "more than 64 MiB waits for the disk");
 }
 
 /* Worker: write one segment's buffers (creating the file first when the
@@ -1327,8 +1353,9 @@ jwork_after(uv_work_t *req, int status)
 			next = b->next;
 			jbuf_free(b);
 		}
-		if (w->upto > st->durable)
-			st->durable = w->upto;
+		if (w->upto > st->written)
+			st->written = w->upto;
+		set_durable(st);
 		st->jbytes += w->bytes;
 		st->jwrites++;
 		st->jretry_ms = 0;
@@ -1356,11 +1383,7 @@ jwork_after(uv_work_t *req, int status)
 		st->jretry_ms = backoff(st->jretry_ms);
 		st->jfailing = 1;
 		jprune(st);
-		if (!st->jfailing) {
-			/* Only covered segments failed: nothing to retry. */
-		} else if (st->jqueued > JOURNAL_BACKLOG_MAX) {
-			jdrop(st, "more than 64 MiB could not be written");
-		} else {
+		if (st->jfailing) {
 			log_warnx("state: %s; records stay applied in memory; "
 			    "retrying in %u ms", st->jerr, st->jretry_ms);
 			if (!st->shutting) {
@@ -1426,6 +1449,13 @@ jrotate(struct state *st, int final)
 	b->upto = ++st->appended;
 	jqueue(st, b);
 	st->jentries++;
+	if (st->jgap) {
+		/* Not safe until a checkpoint at or after this segment: the
+		 * newest gap segment, the oldest first ticket. */
+		if (st->gap_seq == 0)
+			st->gap_from = b->upto;
+		st->gap_seq = seq;
+	}
 	st->jgap = 0;
 	if (st->jsuspended) {
 		st->jsuspended = 0;
@@ -1823,8 +1853,11 @@ ckpt_finish(struct state *st, int ok)
 		st->ck_ok_gen = st->ck.gen;
 		st->ck_count++;
 		st->saved_changes = st->ck.changes;
-		if (st->ck.jticket > st->durable)
-			st->durable = st->ck.jticket;
+		if (st->ck.jticket > st->covered)
+			st->covered = st->ck.jticket;
+		if (st->gap_seq != 0 && st->ck.seq >= st->gap_seq)
+			st->gap_seq = 0;
+		set_durable(st);
 		if (st->jon && st->ck.seq > st->jseg_lo)
 			st->jseg_lo = st->ck.seq;
 		/* Queued bytes of segments the checkpoint covers are moot. */
@@ -2185,10 +2218,13 @@ state_wait(struct state *st, int kind, uint64_t ticket, char *msg,
 	if (kind == CMD_WAIT_SYNC) {
 		if (st->durable >= ticket)
 			return 0;
-		if (st->failed >= ticket || st->jfailing || st->jsuspended) {
+		if (st->failed >= ticket || st->jfailing || st->jsuspended ||
+		    (st->gap_seq != 0 && st->cfailing)) {
 			err_printf(msg, len, "%s", st->jsuspended ?
 			    "journal suspended after write failures until "
-			    "the next checkpoint" : st->jerr);
+			    "the next checkpoint" : st->jfailing ? st->jerr :
+			    st->gap_seq != 0 && st->cfailing ? st->cerr :
+			    st->jerr);
 			return E_IO;
 		}
 		return 1;

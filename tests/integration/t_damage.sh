@@ -364,6 +364,43 @@ kill -KILL "$DPID"; wait "$DPID" 2>/dev/null; DPID=
 start_daemon "$TMP/d.conf"
 check "  after SIGKILL nothing is lost" [ "$(jget "$(get flow_1)" 'd["n_seen"]')" = 1110 ]
 stop_daemon
+
+# 10. The disk stays full until more than 64 MiB of journal is waiting:
+# the backlog is dropped, journaling stops until a checkpoint succeeds,
+# and that checkpoint's segment is marked as following the gap.
+awk 'BEGIN { printf "[daemon]\nlog_level = info\njournal = every-record\n[template wide_*]\nfields ="
+	for (i = 1; i <= 200; i++) printf " f%d", i
+	printf "\ntarget = y\nterms = f1\n" }' >"$TMP/w.conf"
+awk 'BEGIN { l = "wide_1 1"; for (i = 1; i <= 200; i++) l = l " " i
+	for (n = 0; n < 45000; n++) print l; print ".sync" }' >"$TMP/wide.txt"
+rm -rf "$STATE"
+if [ -n "$PRELOAD" ]; then
+	FAULT_DIR=$FULL FAULT_FLAG=$TMP/full.flag LD_PRELOAD=$PRELOAD \
+	    ASAN_OPTIONS=verify_asan_link_order=0 start_daemon "$TMP/w.conf"
+else
+	start_daemon "$TMP/w.conf"
+fi
+r=$(printf '.save\n' | send)
+fill
+r=$(send <"$TMP/wide.txt" | tail -n 1)
+check "backlog over 64 MiB: .sync busy" [ "$(jget "$r" 'd.get("error")')" = busy ]
+check "  the backlog is dropped and the journal suspended (logged)" \
+    grep -q "journal suspended until the next checkpoint: more than 64 MiB" "$TMP/coefd.log"
+unfill
+i=0; while [ $i -lt 150 ]; do
+	[ "$(jget "$(stats)" 'd["state"]["ok"]')" = True ] && break
+	sleep 0.1; i=$((i + 1))
+done
+check "  a checkpoint succeeds, journaling resumes, the alarm clears" \
+    [ "$(jget "$(stats)" 'd["state"]["ok"]')" = True ]
+r=$(printf 'wide_1 1 %s\n.sync\n' "$(seq -s ' ' 1 200)" | send)
+check "  .sync succeeds again" [ "$(jget "$r" 'd["sync"]["accepted"]')" = 1 ]
+kill -KILL "$DPID"; wait "$DPID" 2>/dev/null; DPID=
+"$COEFD" --verify-state "$STATE" >"$TMP/verify.out" 2>&1
+check "  the directory verifies clean" [ $? -eq 0 ]
+start_daemon "$TMP/w.conf"
+check "  after SIGKILL nothing is lost" [ "$(jget "$(get wide_1)" 'd["n_seen"]')" = 45001 ]
+stop_daemon
 [ -n "$MOUNTED" ] && umount "$FULL"
 STATE=$STATE0
 finish
