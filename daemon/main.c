@@ -269,7 +269,7 @@ hook_stats(void *arg, struct json *j)
 	json_key(j, "memory_rss");
 	json_uint(j, rss_bytes());
 	if (d->st != NULL)
-		state_stats(d->st, j, now_real());
+		state_stats(d->st, j);
 }
 
 static void

@@ -1,38 +1,15 @@
 /* SPDX-License-Identifier: ISC */
 /*
- * state: the state directory (layouts and rules in daemon/STATE.md).
- *
- * Restore (at start, blocking, before the daemon listens): the checkpoint
- * models.ckpt is read block by block; a damaged block is skipped (the scan
- * resynchronises on the next valid block) and reported with its offset;
- * then the journal segments from the checkpoint's seq on are replayed in
- * order through the same registry code that applied them the first time,
- * so the result is bit-identical. Replay stops at the first bad entry, so
- * the restored state is always one the daemon really had (checkpoint plus
- * a prefix of the journal); a torn tail of the last segment (a crash in the
- * middle of a write) is cut. Damaged files are kept aside as hard links in
- * damaged/ (never deleted) and the daemon starts with everything valid.
- *
- * Checkpoints (periodic, .save, start, shutdown) never stop ingest for
- * long: at the start the journal rotates to a new segment and a list of
- * the entries is taken (O(models) pointer copy); the entries are then
- * encoded in slices of at most about a millisecond from a uv_idle handle,
- * and an entry about to change before its turn is encoded first (copy
- * before write, registry_hooks.touch), so the file is the state at the
- * rotation. Full chunks go to a worker (uv_queue_work) that writes
- * models.ckpt.tmp, fsyncs, renames it over models.ckpt and fsyncs the
- * directory, then deletes the segments the checkpoint covers.
- *
- * The journal collects entries on the loop and a worker writes them, one
- * job at a time per segment (pwrite at a known offset, so a failed write is
- * redone in place, then fdatasync): after every loop iteration (every
- * record policy: a .sync is answered once its records are on disk) or
- * every interval. On a write error the daemon keeps serving from memory,
- * raises the state alarm, keeps the backlog and retries with backoff; a
- * backlog above JOURNAL_BACKLOG_MAX is dropped and journaling waits for
- * the next checkpoint, whose segment is then marked as following a gap.
+ * state: the state directory; layouts, rules and figures in daemon/STATE.md.
+ * Restore at start (checkpoint, journal replay through the registry,
+ * damage kept aside), checkpoints that never hold the loop for long (a
+ * copy-before-write snapshot encoded in ~1 ms slices, written by a worker:
+ * tmp file, fsync, rename, directory fsync), the journal with its
+ * durability policy (batched writes by a worker, one at a time), and the
+ * daemon-level alarm with retries on disk errors. Not pure (libuv, files,
+ * clocks, logging); the byte formats are persist.c's.
  */
-#define _GNU_SOURCE	/* mkostemp-free openat flags, O_DIRECTORY */
+#define _GNU_SOURCE	/* flock, fdatasync, O_DIRECTORY with -std=gnu11 */
 #include <dirent.h>
 #include <errno.h>
 #include <fcntl.h>
@@ -1662,7 +1639,7 @@ ckpt_kick(struct state *st)
 	w->first = !st->ck.opened;
 	w->last = !st->ck.encoding;
 	w->del_lo = st->ck.seg_lo;
-	w->del_hi = st->jon ? st->ck.seq : st->ck.seg_lo;
+	w->del_hi = st->ck.seq;
 	w->req.data = w;
 	if ((rc = uv_queue_work(st->loop, &w->req, cwork_cb,
 	    cwork_after)) != 0) {
@@ -1858,7 +1835,7 @@ ckpt_finish(struct state *st, int ok)
 		if (st->gap_seq != 0 && st->ck.seq >= st->gap_seq)
 			st->gap_seq = 0;
 		set_durable(st);
-		if (st->jon && st->ck.seq > st->jseg_lo)
+		if (st->ck.seq > st->jseg_lo)
 			st->jseg_lo = st->ck.seq;
 		/* Queued bytes of segments the checkpoint covers are moot. */
 		jprune(st);
@@ -2249,12 +2226,11 @@ json_time_or_null(struct json *j, double t)
 
 /* state_stats: write "state": {...} into the open .stats object. */
 void
-state_stats(const struct state *st, struct json *j, double now)
+state_stats(const struct state *st, struct json *j)
 {
 	const struct ckpt_stats *ls = &st->last;
 	char pol[32];
 
-	(void)now;
 	json_key(j, "state");
 	json_obj_begin(j);
 	json_key(j, "dir");

@@ -72,7 +72,7 @@ uint64_t state_sync_ticket(struct state *st);
 int	 state_wait(struct state *st, int kind, uint64_t ticket, char *msg,
 	    size_t len);
 /* state_stats: the "state" object of .stats (key included). */
-void	 state_stats(const struct state *st, struct json *j, double now);
+void	 state_stats(const struct state *st, struct json *j);
 /* state_shutdown: flush the journal, final checkpoint, close handles. */
 void	 state_shutdown(struct state *st, void (*cb)(void *), void *arg);
 /* state_final_ok: 1 when the final checkpoint was written. */
