@@ -161,9 +161,10 @@ def bench_checkpoint(build, n, history):
             st = ask(d.sock, ".stats\n")["state"]["last_checkpoint"]
             print("checkpoint %s: %d models, %.1f MB, %.0f ms total (.save "
                 "reply after %.0f ms); start %.2f ms, %d slices, longest "
-                "%.2f ms, encoding %.0f ms, writer %.0f ms" % (label,
-                st["models"], st["bytes"] / 1e6, st["ms"], took * 1e3,
-                st["start_ms"], st["slices"], st["slice_max_ms"],
+                "%.2f ms (%.2f ms of CPU), encoding %.0f ms, writer %.0f ms"
+                % (label, st["models"], st["bytes"] / 1e6, st["ms"],
+                took * 1e3, st["start_ms"], st["slices"],
+                st["slice_max_ms"], st["slice_cpu_max_ms"],
                 st["encode_ms"], st["write_ms"]))
             print("  .version round trip without / during the checkpoint: "
                 "median %.3f / %.3f ms, p99 %.3f / %.3f ms, max %.3f / "
