@@ -53,6 +53,7 @@ CORE_SRC = \
 	daemon/err.c \
 	daemon/json.c \
 	daemon/model.c \
+	daemon/persist.c \
 	daemon/proto.c \
 	daemon/render.c \
 	daemon/rls.c \
@@ -63,7 +64,8 @@ DAEMON_SRC = \
 	daemon/log.c \
 	daemon/main.c \
 	daemon/net.c \
-	daemon/notify.c
+	daemon/notify.c \
+	daemon/state.c
 CLIENT_SRC = \
 	client/admin.c \
 	client/conn.c \
@@ -92,6 +94,7 @@ TEST_SRC = \
 	tests/check_main.c \
 	tests/check_model.c \
 	tests/check_nist.c \
+	tests/check_persist.c \
 	tests/check_proto.c \
 	tests/check_recursive.c \
 	tests/check_rls.c \

@@ -66,6 +66,7 @@ struct conn {
 	int		 paused;	/* reading stopped: output over cap */
 	int		 yielded;	/* reading stopped: budget used this turn */
 	size_t		 turn_bytes;	/* read since it last yielded */
+	int		 deferred;	/* reading stopped: a reply waits */
 	int		 drain;		/* close once the output is written */
 	int		 closing;
 	int		 eof;
@@ -105,6 +106,7 @@ struct net {
 
 static void conn_close(struct conn *c);
 static void conn_process(struct conn *c, const char *buf, size_t len);
+static void conn_resume(struct conn *c);
 static void read_cb(uv_stream_t *s, ssize_t nread, const uv_buf_t *buf);
 static void alloc_cb(uv_handle_t *h, size_t suggested, uv_buf_t *buf);
 static void maybe_done(struct net *n);
@@ -171,21 +173,13 @@ write_cb(uv_write_t *req, int status)
 	}
 	if (c->closing)
 		return;
-	if (c->paused && queued(c) <= c->net->o.out_cap / 2) {
+	if (c->paused && queued(c) <= c->net->o.out_cap / 2 &&
+	    !c->net->shutting) {
 		c->paused = 0;
 		c->over_ms = 0;
-		if (c->pendlen > c->pendoff) {
-			size_t off = c->pendoff, len = c->pendlen - off;
-
-			/* conn_process may pause again and re-fill pend. */
-			c->pendoff = c->pendlen = 0;
-			conn_process(c, c->pend + off, len);
-		}
-		if (!c->paused && !c->drain && !c->eof && !c->closing &&
-		    uv_read_start(&c->u.s, alloc_cb, read_cb) != 0)
-			conn_close(c);
+		conn_resume(c);
 	}
-	if (c->drain && queued(c) == 0)
+	if (c->drain && queued(c) == 0 && !c->deferred)
 		conn_close(c);
 }
 
@@ -220,6 +214,27 @@ conn_flush(struct conn *c)
 	c->outlen = 0;
 }
 
+/* Queue the reply in j (for line) plus a newline. */
+static void
+conn_reply(struct conn *c, struct json *j, uint64_t line)
+{
+	if (json_finish(j) != 0) {
+		json_init(j, c->net->jbuf, NET_REPLY_BUF);
+		proto_format_error(j, line, PROTO_R_INTERNAL,
+		    "reply too large");
+	}
+	/* Every rejection is answered and counted; the log gets them too,
+	 * rate-limited per connection so a bad feeder cannot flood it. */
+	if (j->len > 9 && memcmp(j->buf, "{\"error\":", 9) == 0 &&
+	    log_rate_allow(&c->lr, now_ms(c->net)))
+		log_info("peer %s: rejected %.*s", c->sess.peer,
+		    (int)(j->len > 300 ? 300 : j->len), j->buf);
+	if (out_append(c, j->buf, j->len) != 0 || out_append(c, "\n", 1) != 0) {
+		conn_log(c, "out of memory for a reply; closing", 0);
+		conn_close(c);
+	}
+}
+
 /* Run the handler on one message and queue its reply. */
 static void
 conn_dispatch(struct conn *c, const struct proto_msg *msg)
@@ -230,23 +245,12 @@ conn_dispatch(struct conn *c, const struct proto_msg *msg)
 
 	json_init(&j, n->jbuf, NET_REPLY_BUF);
 	r = n->h.on_msg(n->h.arg, &c->sess, msg, &j);
-	if (r != NET_REPLY)
+	if (r == NET_DEFER) {
+		c->deferred = 1;
 		return;
-	if (json_finish(&j) != 0) {
-		json_init(&j, n->jbuf, NET_REPLY_BUF);
-		proto_format_error(&j, msg->line, PROTO_R_INTERNAL,
-		    "reply too large");
 	}
-	/* Every rejection is answered and counted; the log gets them too,
-	 * rate-limited per connection so a bad feeder cannot flood it. */
-	if (j.len > 9 && memcmp(j.buf, "{\"error\":", 9) == 0 &&
-	    log_rate_allow(&c->lr, now_ms(n)))
-		log_info("peer %s: rejected %.*s", c->sess.peer,
-		    (int)(j.len > 300 ? 300 : j.len), j.buf);
-	if (out_append(c, j.buf, j.len) != 0 || out_append(c, "\n", 1) != 0) {
-		conn_log(c, "out of memory for a reply; closing", 0);
-		conn_close(c);
-	}
+	if (r == NET_REPLY)
+		conn_reply(c, &j, msg->line);
 }
 
 /* Keep buf[0..len) for later: reading is paused. */
@@ -286,6 +290,12 @@ conn_process(struct conn *c, const char *buf, size_t len)
 		conn_dispatch(c, c->msg);
 		if (c->sess.close_after)
 			c->drain = 1;
+		if (c->deferred) {
+			/* Later lines wait for the deferred reply. */
+			uv_read_stop(&c->u.s);
+			conn_keep(c, buf + off, len - off);
+			break;
+		}
 		if (queued(c) > c->net->o.out_cap && !c->drain) {
 			if (!c->paused) {
 				uv_read_stop(&c->u.s);
@@ -297,7 +307,26 @@ conn_process(struct conn *c, const char *buf, size_t len)
 		}
 	}
 	conn_flush(c);
-	if (c->drain && queued(c) == 0)
+	if (c->drain && queued(c) == 0 && !c->deferred)
+		conn_close(c);
+}
+
+/* Continue a connection that was paused (output over the cap) or had a
+ * deferred reply: parse the input kept aside, then read again. */
+static void
+conn_resume(struct conn *c)
+{
+	if (c->paused || c->deferred || c->closing)
+		return;
+	if (c->pendlen > c->pendoff) {
+		size_t off = c->pendoff, len = c->pendlen - off;
+
+		/* conn_process may stop again and re-fill pend. */
+		c->pendoff = c->pendlen = 0;
+		conn_process(c, c->pend + off, len);
+	}
+	if (!c->paused && !c->deferred && !c->drain && !c->eof &&
+	    !c->closing && uv_read_start(&c->u.s, alloc_cb, read_cb) != 0)
 		conn_close(c);
 }
 
@@ -330,7 +359,7 @@ read_cb(uv_stream_t *s, ssize_t nread, const uv_buf_t *buf)
 			conn_dispatch(c, c->msg);
 		conn_flush(c);
 		c->drain = 1;
-		if (queued(c) == 0)
+		if (queued(c) == 0 && !c->deferred)
 			conn_close(c);
 		return;
 	}
@@ -338,8 +367,8 @@ read_cb(uv_stream_t *s, ssize_t nread, const uv_buf_t *buf)
 	c->net->st.bytes_in += (uint64_t)nread;
 	conn_process(c, buf->base, (size_t)nread);
 	c->turn_bytes += (size_t)nread;
-	if (c->turn_bytes >= NET_READ_BUDGET && !c->paused && !c->drain &&
-	    !c->closing && !c->eof) {
+	if (c->turn_bytes >= NET_READ_BUDGET && !c->paused && !c->deferred &&
+	    !c->drain && !c->closing && !c->eof) {
 		uv_read_stop(s);
 		c->yielded = 1;
 		c->turn_bytes = 0;
@@ -360,7 +389,9 @@ resume_cb(uv_check_t *h)
 		if (!c->yielded)
 			continue;
 		c->yielded = 0;
-		if (c->paused || c->drain || c->closing || c->eof)
+		/* Paused and deferred connections resume through conn_resume,
+		 * after the input they kept aside. */
+		if (c->paused || c->deferred || c->drain || c->closing || c->eof)
 			continue;
 		if ((rc = uv_read_start(&c->u.s, alloc_cb, read_cb)) != 0 &&
 		    rc != UV_EALREADY) {
@@ -441,7 +472,7 @@ tick_cb(uv_timer_t *t)
 	} else if (!c->paused) {
 		c->over_ms = 0;
 	}
-	if (n->o.idle_ms > 0 && !c->sess.watching &&
+	if (n->o.idle_ms > 0 && !c->sess.watching && !c->deferred &&
 	    now - c->last_ms >= n->o.idle_ms && queued(c) == 0) {
 		log_info("peer %s: idle for %llu s; closing", c->sess.peer,
 		    (unsigned long long)((now - c->last_ms) / 1000));
@@ -976,10 +1007,44 @@ net_close_all(struct net *n, uint64_t deadline_ms, void (*cb)(void *),
 		c->paused = 1;
 		c->drain = 1;
 		conn_flush(c);
-		if (queued(c) == 0)
+		/* A deferred reply is still sent (net_poll_deferred). */
+		if (queued(c) == 0 && !c->deferred)
 			conn_close(c);
 	}
 	maybe_done(n);
+}
+
+/*
+ * net_poll_deferred: for every connection with a deferred reply, ask the
+ * handler (on_deferred) whether it is ready; queue and send the ready
+ * ones and let those connections parse their waiting input and read
+ * again (during shutdown they only drain and close).
+ */
+void
+net_poll_deferred(struct net *n)
+{
+	struct conn *c, *next;
+	struct json j;
+	int r;
+
+	if (n->h.on_deferred == NULL)
+		return;
+	for (c = n->conns; c != NULL; c = next) {
+		next = c->next;
+		if (!c->deferred || c->closing)
+			continue;
+		json_init(&j, n->jbuf, NET_REPLY_BUF);
+		r = n->h.on_deferred(n->h.arg, &c->sess, &j);
+		if (r == NET_DEFER)
+			continue;
+		c->deferred = 0;
+		if (r == NET_REPLY)
+			conn_reply(c, &j, c->sess.wait_line);
+		conn_flush(c);
+		conn_resume(c);
+		if (c->drain && queued(c) == 0 && !c->deferred)
+			conn_close(c);
+	}
 }
 
 /*

@@ -19,5 +19,6 @@ Suite *dist_suite(void);
 Suite *conf_suite(void);
 Suite *activate_suite(void);
 Suite *confman_suite(void);
+Suite *persist_suite(void);
 
 #endif
