@@ -36,6 +36,12 @@ TEST_LIBS   = $(shell pkg-config --libs $(PKGS_TEST))
 
 FINAL_CFLAGS  = -std=gnu11 $(OPT) $(WARN) $(HARDEN) -MMD -MP -Idaemon \
                 $(PATH_DEFS) $(CFLAGS) $(SAN)
+# The per-record engine (rls.c): gcc vectorises its rotation loops only at
+# -O3; -ffp-contract=off keeps the arithmetic the same on every target (no
+# fused multiply-add in the wider clones), so results stay bit for bit.
+# Measured in tests/bench (README, Performance).
+HOT_OPT ?= -O3
+HOT_CFLAGS = $(HOT_OPT) -ffp-contract=off
 FINAL_LDFLAGS = $(HARDEN_LD) $(LDFLAGS) $(SAN)
 
 # The pure engine: no I/O, no libuv, no globals. Built into libcore.a, which
@@ -50,6 +56,7 @@ CORE_SRC = \
 	daemon/err.c \
 	daemon/json.c \
 	daemon/model.c \
+	daemon/persist.c \
 	daemon/proto.c \
 	daemon/render.c \
 	daemon/rls.c \
@@ -60,7 +67,8 @@ DAEMON_SRC = \
 	daemon/log.c \
 	daemon/main.c \
 	daemon/net.c \
-	daemon/notify.c
+	daemon/notify.c \
+	daemon/state.c
 CLIENT_SRC = \
 	client/admin.c \
 	client/conn.c \
@@ -89,6 +97,7 @@ TEST_SRC = \
 	tests/check_main.c \
 	tests/check_model.c \
 	tests/check_nist.c \
+	tests/check_persist.c \
 	tests/check_proto.c \
 	tests/check_recursive.c \
 	tests/check_rls.c \
@@ -98,15 +107,24 @@ TEST_SRC = \
 	tests/nist.c \
 	tests/testutil.c
 
+# Benchmarks (make bench only; not part of check or CI).
+BENCH_SRC = \
+	tests/bench/bench_engine.c \
+	tests/bench/loadgen.c
+
 CORE_OBJ   = $(CORE_SRC:%.c=$(BUILD)/%.o)
 DAEMON_OBJ = $(DAEMON_SRC:%.c=$(BUILD)/%.o)
 CLIENT_OBJ = $(CLIENT_SRC:%.c=$(BUILD)/%.o)
 TEST_OBJ   = $(TEST_SRC:%.c=$(BUILD)/%.o)
+BENCH_OBJ  = $(BENCH_SRC:%.c=$(BUILD)/%.o)
 
 LIBCORE = $(BUILD)/libcore.a
 COEFD   = $(BUILD)/coefd
 COEFCTL = $(BUILD)/coefctl
 UNITS   = $(BUILD)/check_unit
+BENCH_ENGINE = $(BUILD)/bench_engine
+LOADGEN = $(BUILD)/loadgen
+PYTHON  ?= /usr/bin/python3
 
 export OPENBLAS_NUM_THREADS = 1
 
@@ -134,7 +152,7 @@ INSTALL       ?= install
 
 .PHONY: all check san valgrind fuzz fuzz-ci integration demo bench clean \
         deps install uninstall _all _check _unit _integration _dist \
-        _valgrind _fuzz FORCE
+        _valgrind _fuzz _bench FORCE
 
 all: deps
 	@$(MAKE) --no-print-directory _all
@@ -145,7 +163,7 @@ check: deps
 # The same tests under AddressSanitizer + UndefinedBehaviorSanitizer, in a
 # separate build tree so the normal objects are not mixed with these.
 san: deps
-	@$(MAKE) --no-print-directory BUILD=build-san OPT=-O1 \
+	@$(MAKE) --no-print-directory BUILD=build-san OPT=-O1 HOT_OPT= \
 	    SAN="-fsanitize=address,undefined -fno-omit-frame-pointer -fno-sanitize-recover=all" \
 	    TORTURE_N=1000000 _check
 
@@ -192,7 +210,7 @@ FUZZ_SAN = -fsanitize=fuzzer-no-link,address,undefined \
 
 fuzz: deps
 	@sh .ci/deps fuzz
-	@$(MAKE) --no-print-directory BUILD=build-fuzz CC=$(FUZZ_CC) OPT=-O1 \
+	@$(MAKE) --no-print-directory BUILD=build-fuzz CC=$(FUZZ_CC) OPT=-O1 HOT_OPT= \
 	    SAN="$(FUZZ_SAN)" FUZZ_SECONDS=$(FUZZ_SECONDS) _fuzz
 
 fuzz-ci:
@@ -212,6 +230,10 @@ $(BUILD)/fuzz_%: $(BUILD)/tests/fuzz/fuzz_%.o $(LIBCORE)
 demo: deps
 	@$(MAKE) --no-print-directory _all
 	@sh tests/demo/run.sh $(BUILD)
+# Benchmarks and performance targets: prints one table (tests/bench/run.py),
+# about 2-3 minutes, loopback only. Never gates anything on speed.
+bench: deps
+	@$(MAKE) --no-print-directory _bench
 
 deps:
 	@sh .ci/deps
@@ -230,6 +252,10 @@ _unit: $(UNITS)
 _integration: _all
 	@sh tests/integration/run.sh $(BUILD)
 
+_bench: _all $(BENCH_ENGINE) $(LOADGEN)
+	$(PYTHON) tests/bench/run.py $(BUILD) \
+	    "OPT=$(OPT); rls.c adds $(HOT_CFLAGS); CFLAGS=$(CFLAGS)"
+
 $(LIBCORE): $(CORE_OBJ)
 	@rm -f $@
 	ar rcs $@ $^
@@ -244,6 +270,15 @@ $(COEFCTL): $(CLIENT_OBJ) $(LIBCORE)
 # stray libuv or daemon dependency in a pure module fails this link.
 $(UNITS): $(TEST_OBJ) $(LIBCORE)
 	$(CC) $(FINAL_LDFLAGS) -o $@ $(TEST_OBJ) $(LIBCORE) $(TEST_LIBS) $(CORE_LIBS)
+
+$(BENCH_ENGINE): $(BUILD)/tests/bench/bench_engine.o $(LIBCORE)
+	$(CC) $(FINAL_LDFLAGS) -o $@ $(BUILD)/tests/bench/bench_engine.o \
+	    $(LIBCORE) $(CORE_LIBS)
+
+$(LOADGEN): $(BUILD)/tests/bench/loadgen.o
+	$(CC) $(FINAL_LDFLAGS) -o $@ $(BUILD)/tests/bench/loadgen.o -lpthread
+
+$(BUILD)/daemon/rls.o: FINAL_CFLAGS += $(HOT_CFLAGS)
 
 $(BUILD)/daemon/%.o: daemon/%.c
 	@mkdir -p $(@D)
@@ -377,5 +412,6 @@ uninstall:
 clean:
 	rm -rf build build-san build-fuzz
 
--include $(CORE_OBJ:.o=.d) $(DAEMON_OBJ:.o=.d) $(CLIENT_OBJ:.o=.d) $(TEST_OBJ:.o=.d)
+-include $(CORE_OBJ:.o=.d) $(DAEMON_OBJ:.o=.d) $(CLIENT_OBJ:.o=.d) $(TEST_OBJ:.o=.d) \
+    $(BENCH_OBJ:.o=.d)
 -include $(FUZZ_TARGETS:%=$(BUILD)/tests/fuzz/fuzz_%.d)

@@ -221,11 +221,8 @@ do_predict(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
 }
 
 static int
-cmd_sync(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
-    double now, struct json *j)
+sync_reply(struct session *s, uint64_t line, struct json *j)
 {
-	(void)c;
-	(void)now;
 	json_obj_begin(j);
 	json_key(j, "sync");
 	json_obj_begin(j);
@@ -235,10 +232,29 @@ cmd_sync(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
 	json_uint(j, s->sync_rejected);
 	json_obj_end(j);
 	json_key(j, "line");
-	json_uint(j, msg->line);
+	json_uint(j, line);
 	json_obj_end(j);
 	s->sync_accepted = s->sync_rejected = 0;
-	return 1;
+	return CMD_REPLY;
+}
+
+/* .sync: with the every-record journal, the reply waits until every record
+ * accepted so far is on disk (cmd_deferred sends it). */
+static int
+cmd_sync(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
+    double now, struct json *j)
+{
+	uint64_t t;
+
+	(void)now;
+	if (c->hooks.sync_ticket != NULL && c->hooks.wait != NULL &&
+	    (t = c->hooks.sync_ticket(c->hooks.arg)) != 0) {
+		s->wait_kind = CMD_WAIT_SYNC;
+		s->wait_ticket = t;
+		s->wait_line = msg->line;
+		return cmd_deferred(c, s, j);
+	}
+	return sync_reply(s, msg->line, j);
 }
 
 static int
@@ -345,7 +361,7 @@ cmd_pin(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
 	(void)s;
 	if ((e = need_model(c, msg, j)) == NULL)
 		return 1;
-	if (model_pin(e->m, now) != 0)
+	if (registry_pin(c->reg, e, now) != 0)
 		return reject(c, j, msg->line, PROTO_R_NOT_READY,
 		    "not every coefficient is determined yet; nothing pinned");
 	ok_reply(j, "pin", e, msg->line);
@@ -364,7 +380,7 @@ cmd_freeze(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
 	(void)now;
 	if ((e = need_model(c, msg, j)) == NULL)
 		return 1;
-	model_freeze(e->m, on);
+	registry_freeze(c->reg, e, on);
 	ok_reply(j, on ? "freeze" : "thaw", e, msg->line);
 	json_key(j, "frozen");
 	json_bool(j, on);
@@ -528,22 +544,25 @@ cmd_watch(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
 	return 1;
 }
 
+/* .save: checkpoint now; the reply waits until the checkpoint is on disk
+ * (or failed). */
 static int
 cmd_save(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
     double now, struct json *j)
 {
-	char err[160] = "";
+	char err[PROTO_DETAIL_MAX] = "";
+	uint64_t t = 0;
 
-	(void)s;
 	(void)now;
-	if (c->hooks.save == NULL)
+	if (c->hooks.save == NULL || c->hooks.wait == NULL)
 		return reject(c, j, msg->line, PROTO_R_INTERNAL,
 		    "no state directory is in use");
-	if (c->hooks.save(c->hooks.arg, err, sizeof(err)) != 0)
-		return reject(c, j, msg->line, PROTO_R_INTERNAL, err);
-	ok_reply(j, "save", NULL, msg->line);
-	json_obj_end(j);
-	return 1;
+	if (c->hooks.save(c->hooks.arg, &t, err, sizeof(err)) != 0)
+		return reject(c, j, msg->line, PROTO_R_BUSY, err);
+	s->wait_kind = CMD_WAIT_SAVE;
+	s->wait_ticket = t;
+	s->wait_line = msg->line;
+	return cmd_deferred(c, s, j);
 }
 
 static int
@@ -659,9 +678,10 @@ static const struct {
 /*
  * cmd_handle: apply one line from session s at Unix time now. A line the
  * parser rejected (msg->reason < PROTO_NREASONS) is counted and answered
- * with its error. Returns 1 when a reply was written to j (one JSON
- * object, no newline), 0 when there is none (accepted records, anything
- * from UDP).
+ * with its error. Returns CMD_REPLY (1) when a reply was written to j (one
+ * JSON object, no newline), CMD_NOREPLY (0) when there is none (accepted
+ * records, anything from UDP), CMD_DEFER (2) when the reply must wait
+ * (.sync with the every-record journal, .save): see cmd_deferred.
  */
 int
 cmd_handle(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
@@ -678,7 +698,7 @@ cmd_handle(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
 			    msg->model.ptr, msg->model.len);
 
 			if (e != NULL)
-				e->n_rejected++;
+				registry_count_reject(c->reg, e);
 		}
 		r = reject(c, j, msg->line, msg->reason, msg->detail);
 		return s->kind == SESSION_UDP ? 0 : r;
@@ -710,6 +730,42 @@ cmd_handle(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
 			return cmd_table[i].fn(c, s, msg, now, j);
 	return reject(c, j, msg->line, PROTO_R_UNKNOWN_COMMAND,
 	    "command not implemented");
+}
+
+/*
+ * cmd_deferred: session s has a deferred reply (cmd_handle returned
+ * CMD_DEFER). Returns CMD_DEFER while what it waits for is pending, else
+ * writes the reply into j and returns CMD_REPLY: the .sync counts, or for
+ * a journal that failed a `busy` error (the records stay applied in
+ * memory and counted for the next .sync); the .save result.
+ */
+int
+cmd_deferred(struct cmd_ctx *c, struct session *s, struct json *j)
+{
+	char err[120] = "", d[PROTO_DETAIL_MAX];
+	int kind = s->wait_kind, rc;
+
+	if (kind == 0 || c->hooks.wait == NULL)
+		return CMD_NOREPLY;
+	rc = c->hooks.wait(c->hooks.arg, kind, s->wait_ticket, err,
+	    sizeof(err));
+	if (rc > 0)
+		return CMD_DEFER;
+	s->wait_kind = 0;
+	if (kind == CMD_WAIT_SYNC) {
+		if (rc == 0)
+			return sync_reply(s, s->wait_line, j);
+		err_printf(d, sizeof(d), "not on disk yet: %s; the records are "
+		    "applied in memory; send .sync again later", err);
+		return reject(c, j, s->wait_line, PROTO_R_BUSY, d);
+	}
+	if (rc != 0) {
+		err_printf(d, sizeof(d), "checkpoint not written: %s", err);
+		return reject(c, j, s->wait_line, PROTO_R_BUSY, d);
+	}
+	ok_reply(j, "save", NULL, s->wait_line);
+	json_obj_end(j);
+	return CMD_REPLY;
 }
 
 /* cmd_session_closed: a session ends; drop its watch from the count. */

@@ -27,14 +27,34 @@ struct cmd_stats {
 	uint64_t	 watchers;	/* sessions with .watch active */
 };
 
+/* cmd_handle and cmd_deferred results. */
+#define CMD_NOREPLY	0
+#define CMD_REPLY	1	/* one reply line is in j */
+#define CMD_DEFER	2	/* the reply waits on the state layer: call
+				 * cmd_deferred when it reports progress; no
+				 * further line of this session may be handled
+				 * before the reply is out */
+
+/* What a deferred reply waits for (session.wait_kind). */
+#define CMD_WAIT_SYNC	1	/* journal durable up to a ticket */
+#define CMD_WAIT_SAVE	2	/* a checkpoint written */
+
 /* Hooks into the rest of the daemon (main.c). Any may be NULL. */
 struct cmd_hooks {
 	void	*arg;
 	/* Re-read the configuration; 0, or an error with a message. */
 	int	(*reload)(void *arg, char *msg, size_t len, int *kept,
 		    int *stale, int *orphan);
-	/* Checkpoint every model now; 0, or an error with a message. */
-	int	(*save)(void *arg, char *msg, size_t len);
+	/* Checkpoint every model now: 0 with the ticket to wait for
+	 * (CMD_WAIT_SAVE), or an error with a message. */
+	int	(*save)(void *arg, uint64_t *ticket, char *msg, size_t len);
+	/* The ticket a .sync must wait for (CMD_WAIT_SYNC), 0 for none:
+	 * every record accepted so far is then on disk. */
+	uint64_t (*sync_ticket)(void *arg);
+	/* State of a ticket of kind CMD_WAIT_*: 1 pending, 0 done, or a
+	 * negative error with a message (the wait failed). */
+	int	(*wait)(void *arg, int kind, uint64_t ticket, char *msg,
+		    size_t len);
 	/* Send one line to watchers: of model e, or all when e == NULL;
 	 * every_n = 1: only to sessions whose watch_every divides e's
 	 * update count. */
@@ -56,6 +76,8 @@ struct cmd_ctx {
 /* cmd_handle: apply one line for session s at time now; reply into j. */
 int	cmd_handle(struct cmd_ctx *c, struct session *s,
 	    const struct proto_msg *msg, double now, struct json *j);
+/* cmd_deferred: the reply of a deferred line, once it is ready. */
+int	cmd_deferred(struct cmd_ctx *c, struct session *s, struct json *j);
 /* cmd_session_closed: forget a session's watch (on disconnect). */
 void	cmd_session_closed(struct cmd_ctx *c, struct session *s);
 /* cmd_const_eq: constant-time comparison of two byte strings. */

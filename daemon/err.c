@@ -27,6 +27,7 @@ err_str(int code)
 	case E_EXISTS:		return "already exists";
 	case E_DENIED:		return "permission denied";
 	case E_CORRUPT:		return "corrupt data";
+	case E_VERSION:		return "unsupported format version";
 	}
 	return "unknown error";
 }

@@ -21,7 +21,8 @@ enum err {
 	E_STATE = -8,	/* operation not valid in the current state */
 	E_EXISTS = -9,	/* named item already exists */
 	E_DENIED = -10,	/* not permitted for this peer */
-	E_CORRUPT = -11	/* stored data failed a check */
+	E_CORRUPT = -11,	/* stored data failed a check */
+	E_VERSION = -12	/* stored data from a newer format version */
 };
 
 /* err_str: fixed English text for code (0 or negative); never NULL. */

@@ -5,6 +5,7 @@
  * foreground and logs to stderr (journald under systemd).
  */
 #include <errno.h>
+#include <inttypes.h>
 #include <fcntl.h>
 #include <getopt.h>
 #include <pwd.h>
@@ -29,6 +30,7 @@
 #include "net.h"
 #include "notify.h"
 #include "registry.h"
+#include "state.h"
 
 #ifndef COEFD_VERSION
 #define COEFD_VERSION	"0.1.0"
@@ -40,12 +42,18 @@
 #define EXIT_CONFIG	78	/* EX_CONFIG: systemd will not restart */
 #define SHUTDOWN_MS	5000
 #define STATUS_MS	2000	/* STATUS= refresh for the service manager */
+#define OPT_STATE_DIR	256	/* long options without a short form */
+#define OPT_VERIFY	257
 
 struct daemon {
 	uv_loop_t	 loop;
 	const char	*conf_path;
 	const char	*socket_override;
 	struct conf	*conf;
+	char		*conf_text;	/* the text conf came from */
+	size_t		 conf_len;
+	const char	*state_override;	/* --state-dir */
+	struct state	*st;
 	struct registry	*reg;
 	struct net	*net;
 	struct cmd_ctx	 cmd;
@@ -130,9 +138,12 @@ fail:
 	return NULL;
 }
 
-/* Parse the config file; on error a "file:line: message" in err. */
+/* Parse the config file; on error a "file:line: message" in err. The
+ * text goes to *textp (the journal records it), or is freed when textp is
+ * NULL. */
 static struct conf *
-load_conf(const char *path, char *err, size_t elen)
+load_conf(const char *path, char **textp, size_t *lenp, char *err,
+    size_t elen)
 {
 	struct conf_error ce;
 	struct conf *c = NULL;
@@ -149,7 +160,12 @@ load_conf(const char *path, char *err, size_t elen)
 			snprintf(err, elen, "%s: %s", path, ce.msg);
 		c = NULL;
 	}
-	free(text);
+	if (c != NULL && textp != NULL) {
+		*textp = text;
+		*lenp = len;
+	} else {
+		free(text);
+	}
 	return c;
 }
 
@@ -351,6 +367,54 @@ hook_stats(void *arg, struct json *j)
 	json_uint(j, st.out_buffered);
 	json_key(j, "memory_rss");
 	json_uint(j, rss_bytes());
+	if (d->st != NULL)
+		state_stats(d->st, j);
+}
+
+static void
+state_opts_of(const struct daemon *d, const struct conf *c,
+    struct state_opts *o)
+{
+	memset(o, 0, sizeof(*o));
+	o->dir = d->state_override != NULL ? d->state_override :
+	    c->d.state_dir;
+	o->journal = c->d.journal;
+	o->journal_every = c->d.journal_every;
+	o->checkpoint_every = c->d.checkpoint_every;
+}
+
+static int
+hook_save(void *arg, uint64_t *ticket, char *msg, size_t len)
+{
+	struct daemon *d = arg;
+
+	return state_save(d->st, ticket, msg, len);
+}
+
+static uint64_t
+hook_sync_ticket(void *arg)
+{
+	struct daemon *d = arg;
+
+	return state_sync_ticket(d->st);
+}
+
+static int
+hook_wait(void *arg, int kind, uint64_t ticket, char *msg, size_t len)
+{
+	struct daemon *d = arg;
+
+	return state_wait(d->st, kind, ticket, msg, len);
+}
+
+/* The state layer finished a write: answer the replies waiting for it. */
+static void
+state_progress(void *arg)
+{
+	struct daemon *d = arg;
+
+	if (d->net != NULL)
+		net_poll_deferred(d->net);
 }
 
 /* --- service manager: notifications, status, watchdog, sockets --- */
@@ -516,9 +580,11 @@ static int
 do_reload(struct daemon *d, char *msg, size_t len, int *kept, int *stale,
     int *orphan)
 {
+	struct state_opts so;
 	struct net_opts no;
 	struct conf *c;
-	char *tok = NULL;
+	char *tok = NULL, *text = NULL;
+	size_t tlen = 0;
 	uid_t uids[CONF_ADMIN_USERS_MAX];
 	size_t nuids;
 
@@ -526,11 +592,12 @@ do_reload(struct daemon *d, char *msg, size_t len, int *kept, int *stale,
 	 * once it was told we are stopping). */
 	if (!d->stopping)
 		svc_notify(d, "RELOADING=1");
-	if ((c = load_conf(d->conf_path, msg, len)) == NULL ||
+	if ((c = load_conf(d->conf_path, &text, &tlen, msg, len)) == NULL ||
 	    resolve_admins(c, uids, &nuids, msg, len) != 0 ||
 	    (c->d.token_file[0] != '\0' &&
 	    (tok = load_token(c, msg, len)) == NULL)) {
 		conf_free(c);
+		free(text);
 		snprintf(d->reload_err, sizeof(d->reload_err), "%s", msg);
 		if (!d->stopping)
 			svc_status(d, "READY=1\n");
@@ -539,8 +606,13 @@ do_reload(struct daemon *d, char *msg, size_t len, int *kept, int *stale,
 	memcpy(d->admin_uids, uids, nuids * sizeof(uid_t));
 	d->nadmin_uids = nuids;
 	registry_set_conf(d->reg, c, kept, stale, orphan);
+	state_opts_of(d, c, &so);
+	state_reload(d->st, &so, text, tlen);
 	conf_free(d->conf);
 	d->conf = c;
+	free(d->conf_text);
+	d->conf_text = text;
+	d->conf_len = tlen;
 	free(d->token);
 	d->token = tok;
 	d->cmd.token = tok;
@@ -567,13 +639,33 @@ hook_reload(void *arg, char *msg, size_t len, int *kept, int *stale,
 /* --- network callbacks --- */
 
 static int
+net_result(int r)
+{
+	return r == CMD_DEFER ? NET_DEFER : r == CMD_REPLY ? NET_REPLY :
+	    NET_NOREPLY;
+}
+
+static int
 on_msg(void *arg, struct session *s, const struct proto_msg *msg,
     struct json *j)
 {
 	struct daemon *d = arg;
+	double now;
 
-	return cmd_handle(&d->cmd, s, msg, now_real(), j) ? NET_REPLY :
-	    NET_NOREPLY;
+	/* A record with its own @TIME never uses the clock (the registry
+	 * takes the record's time), and reading it was 4.5% of the
+	 * daemon's time per record at p = 4. */
+	now = msg->kind == PROTO_RECORD && msg->has_time &&
+	    msg->reason == PROTO_NREASONS ? msg->time : now_real();
+	return net_result(cmd_handle(&d->cmd, s, msg, now, j));
+}
+
+static int
+on_deferred(void *arg, struct session *s, struct json *j)
+{
+	struct daemon *d = arg;
+
+	return net_result(cmd_deferred(&d->cmd, s, j));
 }
 
 static void
@@ -604,12 +696,22 @@ walk_close(uv_handle_t *h, void *arg)
 }
 
 static void
-net_closed(void *arg)
+state_closed(void *arg)
 {
 	struct daemon *d = arg;
 
 	/* Everything else (signal handles) goes now; the loop then ends. */
 	uv_walk(&d->loop, walk_close, NULL);
+}
+
+static void
+net_closed(void *arg)
+{
+	struct daemon *d = arg;
+
+	/* Every reply is out and no line will change a model any more:
+	 * flush the journal and take the final checkpoint. */
+	state_shutdown(d->st, state_closed, d);
 }
 
 static void
@@ -667,11 +769,20 @@ start_signal(struct daemon *d, uv_signal_t *h, int signum)
 static void
 usage(FILE *fp)
 {
-	fprintf(fp, "usage: coefd [-nvV] [-c FILE] [-s SOCKET]\n"
+	fprintf(fp, "usage: coefd [-nvV] [-c FILE] [-s SOCKET] "
+	    "[--state-dir DIR]\n"
+	    "       coefd --verify-state DIR\n"
 	    "  -c FILE    configuration (default " DEFAULT_CONF ")\n"
 	    "  -n         check the configuration and exit (0 ok, 78 bad)\n"
 	    "  -s SOCKET  listen on this Unix socket instead of the "
 	    "configured one\n"
+	    "  --state-dir DIR\n"
+	    "             keep checkpoints and the journal in DIR instead "
+	    "of state_dir\n"
+	    "  --verify-state DIR\n"
+	    "             check a state directory and exit (0 intact, 1 "
+	    "damaged,\n"
+	    "             2 newer format)\n"
 	    "  -v         log debug messages\n"
 	    "  -V         print the version and exit\n");
 }
@@ -686,13 +797,19 @@ main(int argc, char **argv)
 		{ "verbose", no_argument, NULL, 'v' },
 		{ "version", no_argument, NULL, 'V' },
 		{ "help", no_argument, NULL, 'h' },
+		{ "state-dir", required_argument, NULL, OPT_STATE_DIR },
+		{ "verify-state", required_argument, NULL, OPT_VERIFY },
 		{ NULL, 0, NULL, 0 }
 	};
 	struct daemon d;
 	struct net_handler nh;
 	struct net_opts no;
+	struct state_opts so;
+	struct state_hooks sh;
+	struct state_report rep;
 	char err[400], st[sizeof(err) + 32];
-	int ch, check = 0, rc, i, status;
+	const char *verify = NULL;
+	int ch, check = 0, rc, i, status = 0;
 
 	/* Matrices are small: OpenBLAS must not start worker threads. It
 	 * reads the variable when the library loads, so re-execute once. */
@@ -723,6 +840,12 @@ main(int argc, char **argv)
 		case 'h':
 			usage(stdout);
 			return 0;
+		case OPT_STATE_DIR:
+			d.state_override = optarg;
+			break;
+		case OPT_VERIFY:
+			verify = optarg;
+			break;
 		default:
 			usage(stderr);
 			return 2;
@@ -732,6 +855,8 @@ main(int argc, char **argv)
 		usage(stderr);
 		return 2;
 	}
+	if (verify != NULL)
+		return state_verify(verify, stdout);
 	log_init(LOG_LVL_INFO);
 	d.fd_unix = d.fd_tcp = -1;
 	d.nfy.fd = -1;
@@ -745,7 +870,8 @@ main(int argc, char **argv)
 			    "watchdog off");
 		adopt_sockets(&d);
 	}
-	if ((d.conf = load_conf(d.conf_path, err, sizeof(err))) == NULL) {
+	if ((d.conf = load_conf(d.conf_path, &d.conf_text, &d.conf_len, err,
+	    sizeof(err))) == NULL) {
 		fprintf(stderr, "%s\n", err);
 		snprintf(st, sizeof(st), "STATUS=bad configuration: %s", err);
 		svc_notify(&d, st);
@@ -769,6 +895,7 @@ main(int argc, char **argv)
 		printf("%s: ok (%d models, %d templates)\n", d.conf_path, nm,
 		    nt);
 		conf_free(d.conf);
+		free(d.conf_text);
 		return 0;
 	}
 	log_init(level_of(&d, d.conf));
@@ -778,6 +905,7 @@ main(int argc, char **argv)
 		log_errx("%s", err);
 		conf_free(d.conf);
 		notify_close(&d.nfy);
+		free(d.conf_text);
 		return EXIT_CONFIG;
 	}
 	signal(SIGPIPE, SIG_IGN);
@@ -793,10 +921,35 @@ main(int argc, char **argv)
 	d.cmd.hooks.broadcast = hook_broadcast;
 	d.cmd.hooks.stats = hook_stats;
 	d.cmd.hooks.reload = hook_reload;
+	d.cmd.hooks.save = hook_save;
+	d.cmd.hooks.sync_ticket = hook_sync_ticket;
+	d.cmd.hooks.wait = hook_wait;
+
+	/* The models come back before anyone can talk to the daemon. */
+	state_opts_of(&d, d.conf, &so);
+	memset(&sh, 0, sizeof(sh));
+	sh.arg = &d;
+	sh.progress = state_progress;
+	if ((rc = state_open(&d.loop, &so, d.reg, d.conf, &sh, &d.st, &rep,
+	    err, sizeof(err))) != 0) {
+		log_errx("%s", err);
+		uv_loop_close(&d.loop);
+		registry_free(d.reg);
+		conf_free(d.conf);
+		free(d.conf_text);
+		free(d.token);
+		return rc == E_VERSION ? EXIT_CONFIG : 1;
+	}
+	log_notice("state %s: %" PRIu64 " models restored%s, %" PRIu64
+	    " journal entries replayed (%" PRIu64 " not applied) in %.1f ms; "
+	    "against the configuration: %d kept, %d stale, %d orphan",
+	    so.dir, rep.models, rep.damage ? " WITH DAMAGE (see above)" : "",
+	    rep.entries, rep.skipped, rep.ms, rep.kept, rep.stale, rep.orphan);
 
 	memset(&nh, 0, sizeof(nh));
 	nh.arg = &d;
 	nh.on_msg = on_msg;
+	nh.on_deferred = on_deferred;
 	nh.on_conn = on_conn;
 	nh.on_refused = on_refused;
 	net_opts_of(&d, d.conf, &no);
@@ -806,13 +959,20 @@ main(int argc, char **argv)
 			uv_walk(&d.loop, walk_close, NULL);
 			uv_run(&d.loop, UV_RUN_DEFAULT);
 			net_free(d.net);
+		} else {
+			uv_walk(&d.loop, walk_close, NULL);
+			uv_run(&d.loop, UV_RUN_DEFAULT);
 		}
+		state_free(d.st);
 		registry_free(d.reg);
 		conf_free(d.conf);
+		free(d.conf_text);
 		free(d.token);
 		notify_close(&d.nfy);
 		return 1;
 	}
+	if (state_start(d.st, d.conf_text, d.conf_len) != 0)
+		fatalx("out of memory");
 	if (start_signal(&d, &d.sig_hup, SIGHUP) != 0 ||
 	    start_signal(&d, &d.sig_term, SIGTERM) != 0 ||
 	    start_signal(&d, &d.sig_int, SIGINT) != 0)
@@ -829,15 +989,23 @@ main(int argc, char **argv)
 
 	/* Every handle must be closed by now; one that is not is a shutdown
 	 * bug: exit 1 so that the tests expecting a clean exit catch it. */
-	status = 0;
 	if ((rc = uv_loop_close(&d.loop)) != 0) {
 		log_warnx("loop close: %s", uv_strerror(rc));
 		status = 1;
 	}
-	log_notice("stopped");
+	if (!state_final_ok(d.st)) {
+		log_errx("stopped WITHOUT a final checkpoint: the state since "
+		    "the last good checkpoint is only in the journal, if "
+		    "anywhere");
+		status = 1;
+	} else {
+		log_notice("stopped");
+	}
 	net_free(d.net);
+	state_free(d.st);
 	registry_free(d.reg);
 	conf_free(d.conf);
+	free(d.conf_text);
 	free(d.token);
 	notify_close(&d.nfy);
 	return status;

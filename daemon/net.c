@@ -8,7 +8,12 @@
  * we stop reading from it (the unparsed rest of the current read is kept),
  * resume below half the cap, and close it if it stays over the cap for
  * stuck_ms. Handle memory is freed only in close callbacks (libuv's rule);
- * a connection is never freed inside its own read callback.
+ * a connection is never freed inside its own read callback. Fairness: after
+ * every NET_READ_BUDGET bytes a connection stops reading until the check
+ * phase of the current loop iteration, so a pipelined writer cannot hold
+ * the loop (libuv would otherwise read up to 32 buffers in a row from it,
+ * 2 MiB, tens of milliseconds of records) while a query waits on another
+ * connection.
  */
 #define _GNU_SOURCE	/* struct ucred, SO_PEERCRED */
 #include <arpa/inet.h>
@@ -34,6 +39,7 @@
  * once) must not be turned away with EAGAIN while we are under
  * max_connections; 128 refused most of a burst of 1000. */
 #define NET_BACKLOG	4096
+#define NET_READ_BUDGET	NET_READ_BUF	/* bytes per connection per loop turn */
 
 struct conn;
 
@@ -63,6 +69,9 @@ struct conn {
 	char		*pend;		/* unparsed input kept while paused */
 	size_t		 pendlen, pendoff;
 	int		 paused;	/* reading stopped: output over cap */
+	int		 yielded;	/* reading stopped: budget used this turn */
+	size_t		 turn_bytes;	/* read since it last yielded */
+	int		 deferred;	/* reading stopped: a reply waits */
 	int		 drain;		/* close once the output is written */
 	int		 closing;
 	int		 eof;
@@ -94,6 +103,8 @@ struct net {
 	struct uid_count *uids;		/* open Unix connections per peer
 					 * uid, sorted by uid */
 	size_t		 nuids, capuids;
+	uv_check_t	 resume;	/* restarts yielded connections */
+	unsigned	 nyielded;
 	struct net_stats st;
 	char		 rbuf[NET_READ_BUF];
 	char		 ubuf[NET_READ_BUF];
@@ -112,9 +123,11 @@ struct net {
 static void conn_close(struct conn *c);
 static void uid_remove(struct net *n, uid_t uid);
 static void conn_process(struct conn *c, const char *buf, size_t len);
+static void conn_resume(struct conn *c);
 static void read_cb(uv_stream_t *s, ssize_t nread, const uv_buf_t *buf);
 static void alloc_cb(uv_handle_t *h, size_t suggested, uv_buf_t *buf);
 static void maybe_done(struct net *n);
+static void resume_cb(uv_check_t *h);
 
 static uint64_t
 now_ms(const struct net *n)
@@ -177,21 +190,13 @@ write_cb(uv_write_t *req, int status)
 	}
 	if (c->closing)
 		return;
-	if (c->paused && queued(c) <= c->net->o.out_cap / 2) {
+	if (c->paused && queued(c) <= c->net->o.out_cap / 2 &&
+	    !c->net->shutting) {
 		c->paused = 0;
 		c->over_ms = 0;
-		if (c->pendlen > c->pendoff) {
-			size_t off = c->pendoff, len = c->pendlen - off;
-
-			/* conn_process may pause again and re-fill pend. */
-			c->pendoff = c->pendlen = 0;
-			conn_process(c, c->pend + off, len);
-		}
-		if (!c->paused && !c->drain && !c->eof && !c->closing &&
-		    uv_read_start(&c->u.s, alloc_cb, read_cb) != 0)
-			conn_close(c);
+		conn_resume(c);
 	}
-	if (c->drain && queued(c) == 0)
+	if (c->drain && queued(c) == 0 && !c->deferred)
 		conn_close(c);
 }
 
@@ -226,6 +231,27 @@ conn_flush(struct conn *c)
 	c->outlen = 0;
 }
 
+/* Queue the reply in j (for line) plus a newline. */
+static void
+conn_reply(struct conn *c, struct json *j, uint64_t line)
+{
+	if (json_finish(j) != 0) {
+		json_init(j, c->net->jbuf, NET_REPLY_BUF);
+		proto_format_error(j, line, PROTO_R_INTERNAL,
+		    "reply too large");
+	}
+	/* Every rejection is answered and counted; the log gets them too,
+	 * rate-limited per connection so a bad feeder cannot flood it. */
+	if (j->len > 9 && memcmp(j->buf, "{\"error\":", 9) == 0 &&
+	    log_rate_allow(&c->lr, now_ms(c->net)))
+		log_info("peer %s: rejected %.*s", c->sess.peer,
+		    (int)(j->len > 300 ? 300 : j->len), j->buf);
+	if (out_append(c, j->buf, j->len) != 0 || out_append(c, "\n", 1) != 0) {
+		conn_log(c, "out of memory for a reply; closing", 0);
+		conn_close(c);
+	}
+}
+
 /* Run the handler on one message and queue its reply. */
 static void
 conn_dispatch(struct conn *c, const struct proto_msg *msg)
@@ -236,23 +262,12 @@ conn_dispatch(struct conn *c, const struct proto_msg *msg)
 
 	json_init(&j, n->jbuf, NET_REPLY_BUF);
 	r = n->h.on_msg(n->h.arg, &c->sess, msg, &j);
-	if (r != NET_REPLY)
+	if (r == NET_DEFER) {
+		c->deferred = 1;
 		return;
-	if (json_finish(&j) != 0) {
-		json_init(&j, n->jbuf, NET_REPLY_BUF);
-		proto_format_error(&j, msg->line, PROTO_R_INTERNAL,
-		    "reply too large");
 	}
-	/* Every rejection is answered and counted; the log gets them too,
-	 * rate-limited per connection so a bad feeder cannot flood it. */
-	if (j.len > 9 && memcmp(j.buf, "{\"error\":", 9) == 0 &&
-	    log_rate_allow(&c->lr, now_ms(n)))
-		log_info("peer %s: rejected %.*s", c->sess.peer,
-		    (int)(j.len > 300 ? 300 : j.len), j.buf);
-	if (out_append(c, j.buf, j.len) != 0 || out_append(c, "\n", 1) != 0) {
-		conn_log(c, "out of memory for a reply; closing", 0);
-		conn_close(c);
-	}
+	if (r == NET_REPLY)
+		conn_reply(c, &j, msg->line);
 }
 
 /* Keep buf[0..len) for later: reading is paused. */
@@ -292,6 +307,12 @@ conn_process(struct conn *c, const char *buf, size_t len)
 		conn_dispatch(c, c->msg);
 		if (c->sess.close_after)
 			c->drain = 1;
+		if (c->deferred) {
+			/* Later lines wait for the deferred reply. */
+			uv_read_stop(&c->u.s);
+			conn_keep(c, buf + off, len - off);
+			break;
+		}
 		if (queued(c) > c->net->o.out_cap && !c->drain) {
 			if (!c->paused) {
 				uv_read_stop(&c->u.s);
@@ -303,7 +324,26 @@ conn_process(struct conn *c, const char *buf, size_t len)
 		}
 	}
 	conn_flush(c);
-	if (c->drain && queued(c) == 0)
+	if (c->drain && queued(c) == 0 && !c->deferred)
+		conn_close(c);
+}
+
+/* Continue a connection that was paused (output over the cap) or had a
+ * deferred reply: parse the input kept aside, then read again. */
+static void
+conn_resume(struct conn *c)
+{
+	if (c->paused || c->deferred || c->closing)
+		return;
+	if (c->pendlen > c->pendoff) {
+		size_t off = c->pendoff, len = c->pendlen - off;
+
+		/* conn_process may stop again and re-fill pend. */
+		c->pendoff = c->pendlen = 0;
+		conn_process(c, c->pend + off, len);
+	}
+	if (!c->paused && !c->deferred && !c->drain && !c->eof &&
+	    !c->closing && uv_read_start(&c->u.s, alloc_cb, read_cb) != 0)
 		conn_close(c);
 }
 
@@ -336,13 +376,48 @@ read_cb(uv_stream_t *s, ssize_t nread, const uv_buf_t *buf)
 			conn_dispatch(c, c->msg);
 		conn_flush(c);
 		c->drain = 1;
-		if (queued(c) == 0)
+		if (queued(c) == 0 && !c->deferred)
 			conn_close(c);
 		return;
 	}
 	c->last_ms = now_ms(c->net);
 	c->net->st.bytes_in += (uint64_t)nread;
 	conn_process(c, buf->base, (size_t)nread);
+	c->turn_bytes += (size_t)nread;
+	if (c->turn_bytes >= NET_READ_BUDGET && !c->paused && !c->deferred &&
+	    !c->drain && !c->closing && !c->eof) {
+		uv_read_stop(s);
+		c->yielded = 1;
+		c->turn_bytes = 0;
+		if (c->net->nyielded++ == 0)
+			uv_check_start(&c->net->resume, resume_cb);
+	}
+}
+
+/* Check phase: every connection that used its budget reads again. */
+static void
+resume_cb(uv_check_t *h)
+{
+	struct net *n = h->data;
+	struct conn *c;
+	int rc;
+
+	for (c = n->conns; c != NULL; c = c->next) {
+		if (!c->yielded)
+			continue;
+		c->yielded = 0;
+		/* Paused and deferred connections resume through conn_resume,
+		 * after the input they kept aside. */
+		if (c->paused || c->deferred || c->drain || c->closing || c->eof)
+			continue;
+		if ((rc = uv_read_start(&c->u.s, alloc_cb, read_cb)) != 0 &&
+		    rc != UV_EALREADY) {
+			conn_log(c, "cannot resume reading", rc);
+			conn_close(c);
+		}
+	}
+	n->nyielded = 0;
+	uv_check_stop(h);
 }
 
 static void
@@ -418,7 +493,7 @@ tick_cb(uv_timer_t *t)
 	} else if (!c->paused) {
 		c->over_ms = 0;
 	}
-	if (n->o.idle_ms > 0 && !c->sess.watching &&
+	if (n->o.idle_ms > 0 && !c->sess.watching && !c->deferred &&
 	    now - c->last_ms >= n->o.idle_ms && queued(c) == 0) {
 		log_info("peer %s: idle for %llu s; closing", c->sess.peer,
 		    (unsigned long long)((now - c->last_ms) / 1000));
@@ -908,6 +983,10 @@ net_start(uv_loop_t *loop, const struct net_opts *o,
 	n->h = *h;
 	n->self_uid = geteuid();
 	set_admins(n, o);
+	/* Never fails on Unix; closed by the owner's final uv_walk. */
+	uv_check_init(loop, &n->resume);
+	n->resume.data = n;
+	uv_unref((uv_handle_t *)&n->resume);
 	n->o.unix_path = NULL;
 	n->o.tcp_host = n->o.udp_host = NULL;
 	if (o->unix_path != NULL)
@@ -1053,10 +1132,44 @@ net_close_all(struct net *n, uint64_t deadline_ms, void (*cb)(void *),
 		c->paused = 1;
 		c->drain = 1;
 		conn_flush(c);
-		if (queued(c) == 0)
+		/* A deferred reply is still sent (net_poll_deferred). */
+		if (queued(c) == 0 && !c->deferred)
 			conn_close(c);
 	}
 	maybe_done(n);
+}
+
+/*
+ * net_poll_deferred: for every connection with a deferred reply, ask the
+ * handler (on_deferred) whether it is ready; queue and send the ready
+ * ones and let those connections parse their waiting input and read
+ * again (during shutdown they only drain and close).
+ */
+void
+net_poll_deferred(struct net *n)
+{
+	struct conn *c, *next;
+	struct json j;
+	int r;
+
+	if (n->h.on_deferred == NULL)
+		return;
+	for (c = n->conns; c != NULL; c = next) {
+		next = c->next;
+		if (!c->deferred || c->closing)
+			continue;
+		json_init(&j, n->jbuf, NET_REPLY_BUF);
+		r = n->h.on_deferred(n->h.arg, &c->sess, &j);
+		if (r == NET_DEFER)
+			continue;
+		c->deferred = 0;
+		if (r == NET_REPLY)
+			conn_reply(c, &j, c->sess.wait_line);
+		conn_flush(c);
+		conn_resume(c);
+		if (c->drain && queued(c) == 0 && !c->deferred)
+			conn_close(c);
+	}
 }
 
 /*

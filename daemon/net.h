@@ -45,6 +45,8 @@ struct net_opts {
 /* Handler results. */
 #define NET_REPLY	1	/* reply written to the json writer */
 #define NET_NOREPLY	0
+#define NET_DEFER	2	/* reply later: the connection parses no
+				 * further input until on_deferred gives it */
 
 struct net_handler {
 	void	*arg;
@@ -54,6 +56,10 @@ struct net_handler {
 	 * overflows, the handler is called again with a larger buffer. */
 	int	(*on_msg)(void *arg, struct session *s,
 		    const struct proto_msg *msg, struct json *j);
+	/* A deferred reply: write it into j and return NET_REPLY (or
+	 * NET_NOREPLY) once ready, else NET_DEFER. Called from
+	 * net_poll_deferred. */
+	int	(*on_deferred)(void *arg, struct session *s, struct json *j);
 	/* A connection opened or closed (for statistics). */
 	void	(*on_conn)(void *arg, struct session *s, int opened);
 	/* A connection was refused (limit) or dropped (stuck). */
@@ -91,6 +97,9 @@ void	 net_close_all(struct net *n, uint64_t deadline_ms,
  * session that match() accepts. */
 void	 net_broadcast(struct net *n, int (*match)(const struct session *,
 	    void *), void *marg, const char *line, size_t len);
+/* net_poll_deferred: ask on_deferred for every deferred reply; send the
+ * ready ones and resume those connections. */
+void	 net_poll_deferred(struct net *n);
 /* net_get_stats: current counters. */
 void	 net_get_stats(const struct net *n, struct net_stats *st);
 /* net_free: release after net_close_all has completed. */

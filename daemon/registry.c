@@ -25,7 +25,30 @@ struct registry {
 	size_t		  cap;		/* power of two */
 	size_t		  count;
 	const struct conf *conf;
+	struct registry_hooks hooks;
+	uint64_t	  epoch;	/* last snapshot epoch */
+	int		  snap_active;	/* a snapshot is being taken */
+	uint64_t	  changes;	/* state changes so far */
 };
+
+/* Before e changes: let a running snapshot copy it first. New entries
+ * carry the epoch they were created in, so they are never copied into a
+ * snapshot that started before them. */
+static void
+touch(struct registry *r, struct reg_entry *e)
+{
+	if (r->snap_active && e->snap_epoch != r->epoch &&
+	    r->hooks.touch != NULL)
+		r->hooks.touch(r->hooks.arg, e);
+}
+
+static void
+journal(struct registry *r, const struct reg_op *op)
+{
+	r->changes++;
+	if (r->hooks.journal != NULL)
+		r->hooks.journal(r->hooks.arg, op);
+}
 
 static uint64_t
 hash(const char *s, size_t len)
@@ -140,8 +163,10 @@ registry_adopt(struct registry *r, struct reg_entry *e)
 	i = probe(r, e->name, len);
 	if (r->slot[i] != NULL)
 		return E_EXISTS;
+	e->snap_epoch = r->epoch;
 	r->slot[i] = e;
 	r->count++;
+	r->changes++;
 	return 0;
 }
 
@@ -373,11 +398,54 @@ registry_hist_get(const struct reg_entry *e, uint32_t i)
  * rejected; a rejected line changes no model state (a model created by a
  * template for it stays, empty).
  */
+/* Run raw values x (nfields + 1, target last) through e's model at time
+ * res->t; journal the record when the model accepted it. */
+static int
+ingest(struct registry *r, struct reg_entry *e, const double *x,
+    struct reg_result *res)
+{
+	struct model_step_out so;
+	struct reg_op op;
+	int rc;
+
+	rc = model_ingest(e->m, x, x[e->nfields], 1, res->t, &so);
+	if (rc != 0 && rc != MODEL_PRIMED) {
+		res->reason = rc == E_NUMERIC ? PROTO_R_TERM_NON_FINITE :
+		    PROTO_R_BAD_TIME;
+		err_printf(res->detail, sizeof(res->detail), "%s",
+		    rc == E_NUMERIC ? "a value or derived term is not finite "
+		    "or beyond 1e100" : "the record time is not usable");
+		e->n_rejected++;
+		r->changes++;
+		return -1;
+	}
+	if (rc == MODEL_PRIMED) {
+		res->kind = REG_PRIMED;
+	} else {
+		res->events = so.events;
+		if (so.used) {
+			res->kind = REG_USED;
+			e->n_updates++;
+			history_add(e, res->t);
+		} else {
+			res->kind = so.gate == ALARM_GATE_OUTLIER ? REG_GATED :
+			    REG_FROZEN;
+		}
+	}
+	memset(&op, 0, sizeof(op));
+	op.kind = REG_OP_RECORD;
+	op.e = e;
+	op.x = x;
+	op.nx = e->nfields + 1;
+	op.t = res->t;
+	journal(r, &op);
+	return 0;
+}
+
 int
 registry_record(struct registry *r, const struct proto_msg *msg, double now,
     struct reg_result *res)
 {
-	struct model_step_out so;
 	struct reg_entry *e;
 	double x[PROTO_MAX_VALUES + 2];
 	int has_target, rc;
@@ -388,6 +456,7 @@ registry_record(struct registry *r, const struct proto_msg *msg, double now,
 	if (registry_get(r, msg->model.ptr, msg->model.len, &e, res) != 0)
 		return -1;
 	res->entry = e;
+	touch(r, e);
 	if ((has_target = map_values(e, msg, x, res)) < 0)
 		goto reject;
 	if (!has_target) {
@@ -408,32 +477,42 @@ registry_record(struct registry *r, const struct proto_msg *msg, double now,
 		res->kind = REG_PREDICTION;
 		return 0;
 	}
-	rc = model_ingest(e->m, x, x[e->nfields], 1, res->t, &so);
-	if (rc == MODEL_PRIMED) {
-		res->kind = REG_PRIMED;
-		return 0;
-	}
-	if (rc != 0) {
-		res->reason = rc == E_NUMERIC ? PROTO_R_TERM_NON_FINITE :
-		    PROTO_R_BAD_TIME;
-		err_printf(res->detail, sizeof(res->detail), "%s",
-		    rc == E_NUMERIC ? "a value or derived term is not finite "
-		    "or beyond 1e100" : "the record time is not usable");
-		goto reject;
-	}
-	res->events = so.events;
-	if (so.used) {
-		res->kind = REG_USED;
-		e->n_updates++;
-		history_add(e, res->t);
-	} else {
-		res->kind = so.gate == ALARM_GATE_OUTLIER ? REG_GATED :
-		    REG_FROZEN;
-	}
-	return 0;
+	return ingest(r, e, x, res);
 reject:
 	e->n_rejected++;
+	r->changes++;
 	return -1;
+}
+
+/*
+ * registry_apply: replay a journaled record: raw values x[0..nx) (the
+ * model's fields then its target) for the model name[0..len) at time t,
+ * creating the model from the config in use if needed, exactly as
+ * registry_record did when the record arrived. Returns 0 with res->kind,
+ * or -1 with res->reason/detail (unknown model, nx not the model's
+ * nfields + 1 (PROTO_R_WRONG_COUNT), or the model rejected the values).
+ */
+int
+registry_apply(struct registry *r, const char *name, size_t len,
+    const double *x, int nx, double t, struct reg_result *res)
+{
+	struct reg_entry *e;
+
+	memset(res, 0, sizeof(*res));
+	res->reason = PROTO_NREASONS;
+	res->t = t;
+	if (registry_get(r, name, len, &e, res) != 0)
+		return -1;
+	res->entry = e;
+	touch(r, e);
+	if (nx != e->nfields + 1) {
+		res->reason = PROTO_R_WRONG_COUNT;
+		err_printf(res->detail, sizeof(res->detail), "model \"%s\" "
+		    "takes %d values, the journal has %d", e->name,
+		    e->nfields + 1, nx);
+		return -1;
+	}
+	return ingest(r, e, x, res);
 }
 
 /* Same term list, fields, target and scaling: settings can be swapped in
@@ -517,6 +596,8 @@ registry_set_conf(struct registry *r, const struct conf *c, int *nkept,
 
 		if (e == NULL)
 			continue;
+		touch(r, e);
+		r->changes++;
 		cm = conf_find_model(c, e->name);
 		e->orphan = cm == NULL;
 		e->stale = 0;
@@ -553,7 +634,10 @@ registry_rebuild(struct registry *r, struct reg_entry *e, char *errbuf,
 {
 	const struct conf_model *cm;
 	struct reg_entry *n;
+	struct reg_op op;
+	uint64_t epoch;
 
+	touch(r, e);
 	if ((cm = conf_find_model(r->conf, e->name)) == NULL) {
 		err_printf(errbuf, errlen, "no configuration section for \"%s\"",
 		    e->name);
@@ -576,8 +660,14 @@ registry_rebuild(struct registry *r, struct reg_entry *e, char *errbuf,
 	free(e->fields);
 	free(e->hist);
 	n->n_rejected = e->n_rejected;
+	epoch = e->snap_epoch;
 	*e = *n;
+	e->snap_epoch = epoch;
 	free(n);
+	memset(&op, 0, sizeof(op));
+	op.kind = REG_OP_RESET;
+	op.e = e;
+	journal(r, &op);
 	return 0;
 }
 
@@ -620,4 +710,127 @@ registry_coef_names(const struct reg_entry *e, const char **names)
 
 	for (j = 0; j < e->m->o.p; j++)
 		names[j] = terms_text(e->m->terms, j);
+}
+
+/* registry_set_hooks: use h (copied) from now on; NULL clears them. */
+void
+registry_set_hooks(struct registry *r, const struct registry_hooks *h)
+{
+	if (h == NULL)
+		memset(&r->hooks, 0, sizeof(r->hooks));
+	else
+		r->hooks = *h;
+}
+
+/*
+ * registry_use_conf: use config c (borrowed as in registry_new) for models
+ * created from now on, without applying it to existing models (journal
+ * replay: the models already have the settings of that config).
+ */
+void
+registry_use_conf(struct registry *r, const struct conf *c)
+{
+	r->conf = c;
+}
+
+/*
+ * registry_pin: model_pin(e, t) through the registry (snapshot and
+ * journal hooks). E_STATE, nothing changed, while e is not determined.
+ */
+int
+registry_pin(struct registry *r, struct reg_entry *e, double t)
+{
+	struct reg_op op;
+	int rc;
+
+	touch(r, e);
+	if ((rc = model_pin(e->m, t)) != 0)
+		return rc;
+	memset(&op, 0, sizeof(op));
+	op.kind = REG_OP_PIN;
+	op.e = e;
+	op.t = t;
+	journal(r, &op);
+	return 0;
+}
+
+/* registry_freeze: model_freeze(e, on) through the registry. */
+void
+registry_freeze(struct registry *r, struct reg_entry *e, int on)
+{
+	struct reg_op op;
+
+	touch(r, e);
+	model_freeze(e->m, on);
+	memset(&op, 0, sizeof(op));
+	op.kind = REG_OP_FREEZE;
+	op.e = e;
+	op.on = on != 0;
+	journal(r, &op);
+}
+
+/* registry_count_reject: one more line for e rejected before it reached
+ * the model (a parse error naming it). Not journaled: a counter only. */
+void
+registry_count_reject(struct registry *r, struct reg_entry *e)
+{
+	touch(r, e);
+	e->n_rejected++;
+	r->changes++;
+}
+
+/* registry_touch: call before changing e outside the registry's own
+ * functions, so a running snapshot copies e first. */
+void
+registry_touch(struct registry *r, struct reg_entry *e)
+{
+	touch(r, e);
+}
+
+/*
+ * registry_snap_begin: a snapshot starts: returns its epoch. Until
+ * registry_snap_end, an entry whose snap_epoch differs from it is handed
+ * to hooks.touch before it changes; the snapshot taker sets snap_epoch to
+ * the epoch once it has copied an entry. Entries created from now on
+ * belong to the epoch already (they are not part of this snapshot).
+ */
+uint64_t
+registry_snap_begin(struct registry *r)
+{
+	r->epoch++;
+	r->snap_active = 1;
+	return r->epoch;
+}
+
+/* registry_snap_end: the running snapshot is complete. */
+void
+registry_snap_end(struct registry *r)
+{
+	r->snap_active = 0;
+}
+
+/*
+ * registry_entries: store up to max entries in out in table order (no
+ * sorting: cheap for a snapshot); returns how many were stored. Entries
+ * are never removed while the registry lives, so the pointers stay valid
+ * until registry_free even when the table grows.
+ */
+size_t
+registry_entries(const struct registry *r, struct reg_entry **out,
+    size_t max)
+{
+	size_t i, k = 0;
+
+	for (i = 0; i < r->cap && k < max; i++)
+		if (r->slot[i] != NULL)
+			out[k++] = r->slot[i];
+	return k;
+}
+
+/* registry_changes: how many state changes the registry has seen (records
+ * accepted or rejected, admin commands, new models, reloads). */
+uint64_t
+registry_changes(const struct registry *r)
+{
+	return r->changes;
 }

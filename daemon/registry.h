@@ -35,6 +35,7 @@ struct reg_entry {
 	 * terms). */
 	uint32_t	 hist_cap, hist_len, hist_next, hist_every;
 	double		*hist;
+	uint64_t	 snap_epoch;	/* checkpoint that has this entry */
 };
 
 /* Outcome of one record or prediction request. */
@@ -54,6 +55,34 @@ struct reg_result {
 	unsigned	 events;	/* ALARM_EV_* bits of this record */
 	double		 t;		/* record time used */
 	double		 yhat, se, lo, hi;	/* prediction */
+};
+
+/* A state change the journal must record (registry_hooks.journal). */
+enum reg_op_kind {
+	REG_OP_RECORD = 0,	/* a record the model accepted */
+	REG_OP_PIN,		/* .pin */
+	REG_OP_FREEZE,		/* .freeze / .thaw */
+	REG_OP_RESET		/* .reset */
+};
+
+struct reg_op {
+	enum reg_op_kind kind;
+	const struct reg_entry *e;
+	const double	*x;		/* RECORD: raw values, target last */
+	int		 nx;		/* RECORD: nfields + 1 */
+	double		 t;		/* RECORD, PIN: the time used */
+	int		 on;		/* FREEZE */
+};
+
+/* Calls out of the registry (for persistence); each may be NULL. The
+ * registry does no I/O itself. */
+struct registry_hooks {
+	void	*arg;
+	/* e is about to change while a snapshot is running and the snapshot
+	 * does not have e yet (copy before write); see registry_snap_begin. */
+	void	(*touch)(void *arg, struct reg_entry *e);
+	/* A state change happened; called after it, in order. */
+	void	(*journal)(void *arg, const struct reg_op *op);
 };
 
 struct registry;
@@ -96,5 +125,37 @@ struct reg_entry *registry_entry_new(const struct registry *r,
 		    char *errbuf, size_t errlen);
 /* registry_entry_free: release an entry that is not in a registry. */
 void		 registry_entry_free(struct reg_entry *e);
+
+/* Persistence support. */
+
+/* registry_set_hooks: install (or with NULL clear) the hooks. */
+void		 registry_set_hooks(struct registry *r,
+		    const struct registry_hooks *h);
+/* registry_use_conf: switch the config without touching any model. */
+void		 registry_use_conf(struct registry *r, const struct conf *c);
+/* registry_apply: replay one journaled record (raw values, time). */
+int		 registry_apply(struct registry *r, const char *name,
+		    size_t len, const double *x, int nx, double t,
+		    struct reg_result *res);
+/* registry_pin: .pin e at time t (model_pin, journaled). */
+int		 registry_pin(struct registry *r, struct reg_entry *e,
+		    double t);
+/* registry_freeze: .freeze (on = 1) or .thaw (journaled). */
+void		 registry_freeze(struct registry *r, struct reg_entry *e,
+		    int on);
+/* registry_count_reject: count a line for e rejected before the model. */
+void		 registry_count_reject(struct registry *r,
+		    struct reg_entry *e);
+/* registry_touch: e is about to change (copy-before-write hook). */
+void		 registry_touch(struct registry *r, struct reg_entry *e);
+/* registry_snap_begin: start a snapshot epoch; returns its number. */
+uint64_t	 registry_snap_begin(struct registry *r);
+/* registry_snap_end: the snapshot has every entry it needs. */
+void		 registry_snap_end(struct registry *r);
+/* registry_entries: up to max entries in table order (no sort). */
+size_t		 registry_entries(const struct registry *r,
+		    struct reg_entry **out, size_t max);
+/* registry_changes: count of state changes so far (for "dirty"). */
+uint64_t	 registry_changes(const struct registry *r);
 
 #endif

@@ -32,6 +32,9 @@ struct session {
 	char		 watch_model[MODEL_NAME_MAX + 1];	/* "" = all */
 	uint32_t	 watch_every;	/* also every Nth update (0 = off) */
 	int		 close_after;	/* .bye: close once replies are out */
+	int		 wait_kind;	/* reply deferred: CMD_WAIT_*, 0 none */
+	uint64_t	 wait_ticket;	/* what the deferred reply waits for */
+	uint64_t	 wait_line;	/* the line that asked */
 };
 
 #endif

@@ -74,6 +74,22 @@ stats_add(struct stats *st, double y, double w, double lambda)
 	st->n++;
 }
 
+/* stats_n_eff: Kish's effective count W^2 / Q; 0 before any weight. */
+double
+stats_n_eff(const struct stats *st)
+{
+	return st->Q > 0 ? st->W * st->W / st->Q : 0;
+}
+
+/* stats_r2_pred: one-step-ahead R^2, 1 - RSS_prior / TSS_prior; NAN
+ * until two one-step-ahead errors with some spread were seen. */
+double
+stats_r2_pred(const struct stats *st)
+{
+	return st->tss_prior > 0 && st->n_prior > 1 ?
+	    1 - st->rss_prior / st->tss_prior : NAN;
+}
+
 /* stats_p_eff: p (1 + lambda^n) / (1 + lambda); p when lambda = 1. */
 double
 stats_p_eff(int p, double lampow, double lambda)
@@ -96,15 +112,14 @@ stats_report(const struct stats *st, double J, int p, int intercept,
 	double tss = intercept ? st->S : st->Y2;
 
 	out->weight = st->W;
-	out->n_eff = st->Q > 0 ? st->W * st->W / st->Q : 0;
+	out->n_eff = stats_n_eff(st);
 	out->rss = J;
 	out->mse = st->W > 0 ? J / st->W : NAN;
 	out->nrss = st->S > STATS_VAR_FLOOR * st->Y2 && st->S > 0 ?
 	    J / st->S : NAN;
 	out->r2 = tss > STATS_VAR_FLOOR * st->Y2 && tss > 0 ?
 	    1 - J / tss : NAN;
-	out->r2_pred = st->tss_prior > 0 && st->n_prior > 1 ?
-	    1 - st->rss_prior / st->tss_prior : NAN;
+	out->r2_pred = stats_r2_pred(st);
 	out->dof = st->W - stats_p_eff(p, lampow, lambda);
 	out->sigma = out->dof > 0 ? sqrt(J / out->dof) : NAN;
 }

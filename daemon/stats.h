@@ -45,6 +45,10 @@ void	stats_add(struct stats *st, double y, double w, double lambda);
 /* stats_report: derive the served statistics from J and the model shape. */
 void	stats_report(const struct stats *st, double J, int p, int intercept,
 	    double lampow, double lambda, struct stats_report *out);
+/* stats_n_eff, stats_r2_pred: the two figures the detectors need per
+ * record, without the rest of stats_report. */
+double	stats_n_eff(const struct stats *st);
+double	stats_r2_pred(const struct stats *st);
 /* stats_p_eff: effective number of parameters under forgetting. */
 double	stats_p_eff(int p, double lampow, double lambda);
 

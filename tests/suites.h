@@ -20,5 +20,6 @@ Suite *conf_suite(void);
 Suite *torture_suite(void);
 Suite *activate_suite(void);
 Suite *confman_suite(void);
+Suite *persist_suite(void);
 
 #endif

@@ -10,6 +10,7 @@ PY=/usr/bin/python3
 [ -x "$PY" ] || PY=python3
 TMP=$(mktemp -d "${TMPDIR:-/tmp}/coefd-it.XXXXXX")
 SOCK=$TMP/coefd.sock
+STATE=$TMP/state
 DPID=
 FAILS=0
 CHECKS=0
@@ -23,10 +24,15 @@ cleanup() {
 }
 trap cleanup EXIT INT TERM
 
-# start_daemon CONF: start coefd in the background, wait for its socket.
-# COEFD_WRAP, if set, is a command to run it under (make valgrind).
+# start_daemon CONF: start coefd in the background (state in $STATE), wait
+# for its socket; the log is appended to $TMP/coefd.log. COEFD_WRAP, if
+# set, is a command to run it under (make valgrind).
 start_daemon() {
-	${COEFD_WRAP:-} "$COEFD" -c "$1" -s "$SOCK" >"$TMP/coefd.log" 2>&1 &
+	# A daemon killed with SIGKILL leaves its socket file behind: without
+	# this the wait below could see it before the new daemon binds.
+	rm -f "$SOCK"
+	${COEFD_WRAP:-} "$COEFD" -c "$1" -s "$SOCK" --state-dir "$STATE" \
+	    >>"$TMP/coefd.log" 2>&1 &
 	DPID=$!
 	i=0
 	while [ ! -S "$SOCK" ] && [ $i -lt 400 ]; do

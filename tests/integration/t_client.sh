@@ -350,7 +350,7 @@ run $C --json stats
 keys d version uptime models records rejected rejected_total alarms_raised \
     watchers connections connections_total connections_refused \
     dropped_stuck dropped_idle datagrams bytes_in bytes_out output_buffered \
-    memory_rss
+    memory_rss state
 keys 'd["records"]' used gated primed frozen predictions
 
 echo "t_client: pin, freeze, thaw, reset, save, reload"
