@@ -95,7 +95,7 @@ fi
 start_limited() {	# HARD SOFT CONF
 	sh -c 'ulimit -Sn "$2" && ulimit -Hn "$1" && shift 2 && exec "$@"' \
 	    sh "$1" "$2" ${COEFD_WRAP:-} "$COEFD" -c "$3" -s "$SOCK" \
-	    >"$TMP/coefd.log" 2>&1 &
+	    --state-dir "$STATE" >"$TMP/coefd.log" 2>&1 &
 	DPID=$!
 	i=0
 	while [ ! -S "$SOCK" ] && [ $i -lt 400 ]; do

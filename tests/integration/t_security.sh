@@ -195,7 +195,8 @@ for l in "tcp = 0.0.0.0:$PORT" "tcp = [::]:$PORT" "udp = 0.0.0.0:$PORT" \
 	check "  and the message names allow_remote" grep -q allow_remote "$TMP/r.out"
 done
 printf '[daemon]\ntcp = 0.0.0.0:%s\n' "$PORT" >"$TMP/r.conf"
-"$COEFD" -c "$TMP/r.conf" -s "$TMP/r.sock" >"$TMP/r.out" 2>&1
+"$COEFD" -c "$TMP/r.conf" -s "$TMP/r.sock" --state-dir "$STATE" \
+    >"$TMP/r.out" 2>&1
 check "the daemon itself refuses to start on 0.0.0.0 (exit 78)" [ $? -eq 78 ]
 check "  and created no socket" [ ! -e "$TMP/r.sock" ]
 printf '[daemon]\ntcp = 0.0.0.0:%s\nallow_remote = yes\n' "$PORT" >"$TMP/r.conf"
