@@ -204,6 +204,7 @@ FUZZ_CC ?= clang
 FUZZ_TARGETS = \
 	cmd \
 	conf \
+	persist \
 	proto
 FUZZ_SAN = -fsanitize=fuzzer-no-link,address,undefined \
 	-fno-omit-frame-pointer -fno-sanitize-recover=all
