@@ -4,10 +4,10 @@
  * rejected: pipelined); predictions and commands get one JSON line each.
  * Access rules: state-changing commands need an admin session (on the
  * Unix socket root, the daemon's user and admin_users, as net decides
- * from SO_PEERCRED; on TCP every peer when admin_from_tcp is set); when a token is configured,
- * TCP peers must present it with .auth before writing records or running
- * admin commands; UDP peers may only send records. PURE apart from the
- * hooks: no libuv, no I/O, no clocks.
+ * from SO_PEERCRED; on TCP every peer when admin_from_tcp is set); when a
+ * token is configured, TCP peers must present it with .auth before
+ * writing records or running admin commands; UDP peers may only send
+ * records. PURE apart from the hooks: no libuv, no I/O, no clocks.
  */
 #include <math.h>
 #include <stdio.h>

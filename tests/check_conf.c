@@ -269,7 +269,8 @@ START_TEST(test_conf_defaults_roundtrip)
 	/* Writing every default explicitly gives the same struct. */
 	c = parse_ok("[daemon]\nsocket = /run/coefd/coefd.sock\n"
 	    "socket_mode = 0660\ntcp = off\nudp = off\nallow_remote = no\n"
-	    "admin_from_tcp = no\nadmin_users =\ntoken_file =\nstate_dir = /var/lib/coefd\n"
+	    "admin_from_tcp = no\nadmin_users =\ntoken_file =\n"
+	    "state_dir = /var/lib/coefd\n"
 	    "checkpoint_every = 5m\njournal = 200ms\nmax_line = 64k\n"
 	    "max_connections = 1024\nmax_connections_per_uid = 256\n"
 	    "max_models = 10000\nmax_features = 64\noutput_buffer = 1M\n"
