@@ -41,7 +41,7 @@
 #define JBUF_SIZE	65536u		/* first journal buffer */
 #define JOURNAL_BACKLOG_MAX (64u << 20)	/* unwritten journal bytes kept */
 #define RETRY_MIN_MS	250u
-#define RETRY_MAX_MS	30000u
+#define RETRY_MAX_MS	5000u	/* a full disk is retried at least every 5 s */
 #define WARN_ENTRIES	5		/* per-entry replay warnings logged */
 
 /* Encoded checkpoint bytes waiting for the writer. */

@@ -20,7 +20,8 @@ cleanup() {
 	if [ -n "$DPID" ] && kill -0 "$DPID" 2>/dev/null; then
 		kill -KILL "$DPID" 2>/dev/null
 	fi
-	rm -rf "$TMP"
+	# KEEP_TMP=1 keeps the directory (logs, state) for a post-mortem.
+	[ -n "${KEEP_TMP:-}" ] || rm -rf "$TMP"
 }
 trap cleanup EXIT INT TERM
 

@@ -237,7 +237,7 @@ check "  records are applied; .sync says they are not on disk (busy)" \
     [ "$(jget "$r" 'd["error"]')" = busy ]
 check "  .get serves them" [ "$(jget "$(get flow_1)" 'd["n_seen"]')" = 105 ]
 chmod 0777 "$STATE"; chmod 0666 "$STATE/models.ckpt"
-i=0; while [ $i -lt 400 ]; do
+i=0; while [ $i -lt 600 ]; do
 	[ "$(jget "$(stats)" 'd["state"]["ok"]')" = True ] && break
 	sleep 0.1; i=$((i + 1))
 done
@@ -355,7 +355,7 @@ check "  .save fails, reported busy" [ "$(jget "$r" 'd["error"]')" = busy ]
 check "  the last good checkpoint is untouched" cmp -s "$TMP/good.ckpt" "$STATE/models.ckpt"
 check "  no temporary file left behind" [ ! -e "$STATE/models.ckpt.tmp" ]
 unfill
-i=0; while [ $i -lt 400 ]; do
+i=0; while [ $i -lt 600 ]; do
 	[ "$(jget "$(stats)" 'd["state"]["ok"]')" = True ] && break
 	sleep 0.1; i=$((i + 1))
 done
@@ -389,7 +389,7 @@ check "backlog over 64 MiB: .sync busy" [ "$(jget "$r" 'd.get("error")')" = busy
 check "  the backlog is dropped and the journal suspended (logged)" \
     grep -q "journal suspended until the next checkpoint: more than 64 MiB" "$TMP/coefd.log"
 unfill
-i=0; while [ $i -lt 400 ]; do
+i=0; while [ $i -lt 600 ]; do
 	[ "$(jget "$(stats)" 'd["state"]["ok"]')" = True ] && break
 	sleep 0.1; i=$((i + 1))
 done
