@@ -171,12 +171,14 @@ integration: deps
 	@$(MAKE) --no-print-directory _integration
 
 # The unit tests (CK_FORK=no, one process) and every integration test
-# with the daemon under valgrind memcheck: any error or any block still
-# allocated at the daemon's clean shutdown fails (each run's log must be
-# empty). tests/valgrind.supp lists the C library's own allocations.
-VALGRIND = valgrind -q --leak-check=full --show-leak-kinds=all \
-	--errors-for-leak-kinds=all --error-exitcode=99 \
-	--suppressions=$(CURDIR)/tests/valgrind.supp
+# with the daemon under valgrind memcheck: any memory error or any lost
+# block fails (each run's log must be empty). A block main forgot to free
+# at a clean shutdown shows as lost, since main's frame is gone when the
+# leak check runs; "still reachable" blocks are allowed, because a second
+# SIGTERM exits at once (by design) from inside the loop.
+VALGRIND = valgrind -q --leak-check=full \
+	--show-leak-kinds=definite,indirect,possible \
+	--errors-for-leak-kinds=definite,indirect,possible --error-exitcode=99
 
 valgrind: deps
 	@sh .ci/deps valgrind
