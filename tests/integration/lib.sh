@@ -52,12 +52,21 @@ stop_daemon() {
 	return $rc
 }
 
-# send: stdin lines to the socket, replies to stdout (half-close at EOF).
-send() {
-	"$PY" -c '
+# The one plain-socket client of the tests (inline, so it also runs as
+# another user who cannot read this tree): argv unix PATH or tcp PORT;
+# stdin is sent, the sending side closed, every reply printed. A refused
+# connection prints "connect: REASON" and exits 0.
+SEND_PY='
 import socket, sys
-s = socket.socket(socket.AF_UNIX)
-s.connect(sys.argv[1])
+try:
+    if sys.argv[1] == "unix":
+        s = socket.socket(socket.AF_UNIX)
+        s.connect(sys.argv[2])
+    else:
+        s = socket.create_connection(("127.0.0.1", int(sys.argv[2])))
+except OSError as e:
+    print("connect: %s" % e.strerror)
+    sys.exit(0)
 s.sendall(sys.stdin.buffer.read())
 s.shutdown(socket.SHUT_WR)
 out = b""
@@ -67,7 +76,11 @@ while True:
         break
     out += d
 sys.stdout.buffer.write(out)
-' "$SOCK"
+'
+
+# send: stdin lines to the socket, replies to stdout (half-close at EOF).
+send() {
+	"$PY" -c "$SEND_PY" unix "$SOCK"
 }
 
 # jget JSON-LINE EXPR: evaluate a Python expression on the parsed line (d).

@@ -11,41 +11,13 @@
 
 # send_as UID GID: like send, as another user (setpriv, util-linux).
 send_as() {
-	setpriv --reuid="$1" --regid="$2" --clear-groups "$PY" -c '
-import socket, sys
-s = socket.socket(socket.AF_UNIX)
-try:
-    s.connect(sys.argv[1])
-except OSError as e:
-    print("connect: %s" % e.strerror)
-    sys.exit(0)
-s.sendall(sys.stdin.buffer.read())
-s.shutdown(socket.SHUT_WR)
-out = b""
-while True:
-    d = s.recv(1 << 16)
-    if not d:
-        break
-    out += d
-sys.stdout.buffer.write(out)
-' "$SOCK"
+	setpriv --reuid="$1" --regid="$2" --clear-groups "$PY" -c "$SEND_PY" \
+	    unix "$SOCK"
 }
 
 # send_tcp PORT: stdin lines to 127.0.0.1:PORT, replies to stdout.
 send_tcp() {
-	"$PY" -c '
-import socket, sys
-s = socket.create_connection(("127.0.0.1", int(sys.argv[1])))
-s.sendall(sys.stdin.buffer.read())
-s.shutdown(socket.SHUT_WR)
-out = b""
-while True:
-    d = s.recv(1 << 16)
-    if not d:
-        break
-    out += d
-sys.stdout.buffer.write(out)
-' "$1"
+	"$PY" -c "$SEND_PY" tcp "$1"
 }
 
 # reasons FILE: the "error" (or "ok") key of every reply line, one line.
