@@ -18,6 +18,7 @@
 #include <string.h>
 #include <time.h>
 
+#include "benchutil.h"
 #include "cmd.h"
 #include "conf.h"
 #include "model.h"
@@ -29,31 +30,8 @@
 #define NDATA		4096	/* distinct records cycled through */
 #define RUN_SEC		0.08	/* target length of one timed run */
 
-static double
-now_sec(void)
-{
-	struct timespec ts;
 
-	clock_gettime(CLOCK_MONOTONIC, &ts);
-	return (double)ts.tv_sec + (double)ts.tv_nsec * 1e-9;
-}
 
-/* splitmix64 (Steele, Lea & Flood 2014): enough for benchmark data. */
-static uint64_t
-mix(uint64_t *s)
-{
-	uint64_t z = (*s += 0x9e3779b97f4a7c15ULL);
-
-	z = (z ^ (z >> 30)) * 0xbf58476d1ce4e5b9ULL;
-	z = (z ^ (z >> 27)) * 0x94d049bb133111ebULL;
-	return z ^ (z >> 31);
-}
-
-static double
-unif(uint64_t *s)
-{
-	return (double)(mix(s) >> 11) * 0x1p-53;
-}
 
 /* Regressors (intercept first) and targets of a well-excited linear
  * model with a little noise: y = sum_j 0.1 (j + 1) phi_j + e. */

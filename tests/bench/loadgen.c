@@ -23,6 +23,8 @@
 #include <time.h>
 #include <unistd.h>
 
+#include "benchutil.h"
+
 #define MAX_CONNS	64
 #define WRITE_CHUNK	65536
 #define DEADLINE_SEC	60.0	/* no single phase runs longer */
@@ -38,30 +40,8 @@ struct opts {
 	long		 queries;	/* per kind (query) */
 };
 
-static double
-now_sec(void)
-{
-	struct timespec ts;
 
-	clock_gettime(CLOCK_MONOTONIC, &ts);
-	return (double)ts.tv_sec + (double)ts.tv_nsec * 1e-9;
-}
 
-static uint64_t
-mix(uint64_t *s)
-{
-	uint64_t z = (*s += 0x9e3779b97f4a7c15ULL);
-
-	z = (z ^ (z >> 30)) * 0xbf58476d1ce4e5b9ULL;
-	z = (z ^ (z >> 27)) * 0x94d049bb133111ebULL;
-	return z ^ (z >> 31);
-}
-
-static double
-unif(uint64_t *s)
-{
-	return (double)(mix(s) >> 11) * 0x1p-53;
-}
 
 /*
  * The records of connection c: n lines "b<p>_<k> @<time> y x1 .. x<p-1>"
