@@ -146,6 +146,8 @@ rls_opts_of(const struct model *m, struct rls_opts *ro)
 	ro->theta0 = m->o.theta0;
 	ro->prior_sd = m->o.prior_sd;
 	ro->theta_ref = m->o.reference;
+	/* Blocked regularisation rows need a constant lambda (rls.c). */
+	ro->reg_block = m->o.tau > 0 ? 1 : rls_reg_block(m->o.p, m->o.lambda);
 }
 
 static void
@@ -379,7 +381,7 @@ model_step(struct model *m, const double *phi, double y, double w,
 	}
 	if (out->used) {
 		/* Cannot fail: every argument was validated above. */
-		rls_update(m->rls, phi, y, w, lam);
+		rls_update_ap(m->rls, &a, phi, y, w, lam);
 		stats_add(&m->st, y, w, lam);
 		m->last_t = t;
 		m->has_last_t = 1;

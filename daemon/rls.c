@@ -31,12 +31,21 @@
  * directions decays as lam^n and P explodes. Remedy: regularised
  * ("stabilised") forgetting, R_n = lam R_{n-1} + (1-lam) D + w phi phi',
  * D = delta I, pulling toward theta_ref (Kulhavy & Zarrop 1993; Gunnarsson
- * 1996). It is applied in the cyclic form: each record adds one pseudo-row
- * sqrt(p (1-lam) delta) [e_j' theta_ref_j], j = record index mod p, which
- * costs O(p^2) and keeps an exact batch equivalent (these rows are ordinary
- * weighted rows). In steady state each coordinate receives between
- * c_min delta and c_max delta with c = p(1-lam)lam^k/(1-lam^p), k in
- * 0..p-1, so R >= c_min delta I and trace(P) <= p / (c_min delta) once the
+ * 1996). It is applied in a cyclic, blocked form: every K-th record adds
+ * one pseudo-row sqrt(p delta (1 - lam^K)) [e_j' theta_ref_j] for the next
+ * coordinate j in turn. For a constant lam this is exactly the
+ * information the p K records of one cycle owe coordinate j
+ * (sum_{i<K} p (1-lam) delta lam^i = p delta (1 - lam^K)), lumped into
+ * one row: rows with the same regressor e_j and target add, so the state
+ * at each such record is that of the per-record schedule run coordinate by
+ * coordinate in blocks of K, and the batch equivalent stays exact (these
+ * rows are ordinary weighted rows). K = 1 is the plain cyclic form; the
+ * model picks K with rls_reg_block so a cycle (p K records) stays within a
+ * quarter of the memory 1/(1-lam), and the rows cost O(p^2 / K) per record
+ * instead of O(p^2). In steady state coordinate j holds between
+ * c_min delta and c_max delta with
+ *   c_min = p (1 - lam^K) lam^(pK-1) / (1 - lam^(pK)),
+ * so R >= c_min delta I and trace(P) <= p / (c_min delta) once the
  * pseudo-rows have accumulated (see rls_windup_bound in the tests).
  *
  * Overflow: inputs are bounded by RLS_VALUE_MAX = 1e100 and 1/s by
@@ -55,6 +64,8 @@
 #include "rls.h"
 
 #define RESCALE_MIN	1e-30
+/* Largest q_p = 1 + |Ust^-T x|^2 the fast path accepts (see rotate_fast). */
+#define FAST_QMAX	1e100
 /*
  * Runtime dispatch of the rotation loops: gcc builds rotate_in for the
  * baseline x86-64 (SSE2) and for x86-64-v3 (AVX2) and the loader picks one
@@ -193,6 +204,77 @@ rotate_in(struct rls *r, double *row, double *reg, int c0)
 		TT(r, p, p) = radius(TT(r, p, p), reg[p]);
 }
 
+/*
+ * The fast path of an update. For a row x (stored scale, length n, zero
+ * before column k0) and u = Ust^-T x (forward substitution), the Givens
+ * rotation that annihilates x into triangle row k is known in advance:
+ * with q_k = 1 + sum_{i<k} u_i^2 and rho_k = sqrt(q_k),
+ *   c_k = rho_k / rho_{k+1},   s_k = u_k / rho_{k+1},
+ * and the part of the row still to be annihilated at step k is
+ * g^(k) / rho_k, where g^(k)_j = x_j - sum_{i<k} u_i T_ij are exactly the
+ * partial sums of the forward substitution. (Both follow by induction
+ * from the rotation formulas: after rotation k the row holds
+ * (g^(k) - u_k T_k.) / rho_{k+1}; the relation is the one behind the
+ * a-priori/a-posteriori error ratio of QR-RLS, Haykin, "Adaptive Filter
+ * Theory", QR-decomposition-based RLS.) Per entry the update is then
+ *   T_kj <- c_k T_kj + u_k g^(k)_j / (rho_k rho_{k+1}),
+ *   g^(k+1)_j = g^(k)_j - u_k T_kj (old T),
+ *   T_kk <- T_kk rho_{k+1} / rho_k,  rho' = radius(rho, g^(p)_p / rho_p).
+ * The chain of square roots and divisions that bounds the sequential
+ * rotations becomes a chain of additions (the prefix sums q); the square
+ * roots and reciprocals are independent of each other and pipeline, and
+ * the entry loop has no dependency between k steps except through g.
+ * c_k^2 + s_k^2 = 1 up to the rounding of q, so each step is still an
+ * orthogonal rotation to working precision (backward stable, as the
+ * sequential form). Used only when every pivot T_kk is nonzero
+ * and q_p < FAST_QMAX, which keeps every intermediate far below DBL_MAX
+ * (|g| <= rho_p times the row norm); otherwise the sequential rotations
+ * (rotate_in) run, which handle a zero pivot (a coefficient not yet
+ * determined) and any range the inputs allow.
+ *
+ * rotate_fast folds row x (length n, stored scale; overwritten) into the
+ * triangle given u = Ust^-T x[0..p); returns 0 when done, 1 when the fast
+ * path does not apply (nothing changed).
+ */
+CLONES static int
+rotate_fast(struct rls *r, double *x, const double *u)
+{
+	double rho[RLS_MAX_P + 1], irho[RLS_MAX_P + 1], q = 1;
+	int j, k, n = r->n, p = r->p;
+
+	rho[0] = 1;
+	irho[0] = 1;
+	for (k = 0; k < p; k++) {
+		q += u[k] * u[k];
+		rho[k + 1] = q;
+	}
+	if (!(q < FAST_QMAX))
+		return 1;
+	for (k = 1; k <= p; k++) {
+		rho[k] = sqrt(rho[k]);
+		irho[k] = 1.0 / rho[k];
+	}
+	for (k = 0; k < p; k++) {
+		double *restrict tk = &r->T[(size_t)k * (size_t)n];
+		double *restrict xr = x;
+		double uk = u[k], ck, sk;
+
+		if (uk == 0.0)
+			continue;
+		ck = rho[k] * irho[k + 1];
+		sk = uk * irho[k] * irho[k + 1];
+		tk[k] *= rho[k + 1] * irho[k];
+		for (j = k + 1; j < n; j++) {
+			double old = xr[j], t = tk[j];
+
+			xr[j] = old - uk * t;
+			tk[j] = ck * t + sk * old;
+		}
+	}
+	TT(r, p, p) = radius(TT(r, p, p), x[p] * irho[p]);
+	return 0;
+}
+
 static int
 check_opts(const struct rls_opts *o)
 {
@@ -201,6 +283,8 @@ check_opts(const struct rls_opts *o)
 	if (o == NULL || o->p < 1 || o->p > RLS_MAX_P)
 		return E_ARG;
 	if (!isfinite(o->delta) || o->delta < 0)
+		return E_ARG;
+	if (o->reg_block < 0 || o->reg_block > RLS_REG_BLOCK_MAX)
 		return E_ARG;
 	if (o->theta0 != NULL) {
 		if (o->prior_sd == NULL)
@@ -230,6 +314,7 @@ start_state(struct rls *r, const struct rls_opts *o)
 	r->s = 1.0;
 	r->lampow = 1.0;
 	r->delta = o->delta;
+	r->regk = o->reg_block > 0 ? o->reg_block : 1;
 	r->nupd = 0;
 	r->cyc = 0;
 	memset(r->T, 0, sizeof(double) * (size_t)r->n * (size_t)r->n);
@@ -322,6 +407,7 @@ rls_copy(struct rls *dst, const struct rls *src)
 	dst->s = src->s;
 	dst->lampow = src->lampow;
 	dst->delta = src->delta;
+	dst->regk = src->regk;
 	dst->nupd = src->nupd;
 	dst->cyc = src->cyc;
 	memcpy(dst->T, src->T, sizeof(double) * n * n);
@@ -375,16 +461,17 @@ forward(const struct rls *r, const double *x, double *v)
  * changing state: yhat = phi' theta_{n-1} and r = phi' P_{n-1} phi, where
  * P_{n-1} = R_{n-1}^-1 (before the next record's forgetting). When some
  * coefficient is not yet determined, a->determined = 0 and yhat, r are NAN.
- * Returns E_NUMERIC for a non-finite or out-of-range phi.
- * Cost: p^2/2 multiply-adds.
+ * Keeps v = Ust^-T phi in a for rls_update_ap. Returns E_NUMERIC for a
+ * non-finite or out-of-range phi.
+ * Cost: p^2/2 multiply-adds, p divisions that do not wait for each other.
  */
 int
 rls_apriori(const struct rls *r, const double *phi, struct rls_apriori *a)
 {
-	double v[RLS_MAX_P + 1];
-	double yhat = 0, ss = 0;
+	double yhat = 0, ss = 0, *v = a->v;
 	int j, p = r->p;
 
+	a->of = NULL;
 	for (j = 0; j < p; j++)
 		if (!finite_bounded(phi[j]))
 			return E_NUMERIC;
@@ -402,25 +489,40 @@ rls_apriori(const struct rls *r, const double *phi, struct rls_apriori *a)
 	}
 	a->yhat = yhat;
 	a->r = ss / (r->s * r->s);
+	a->of = r;
+	a->nupd = r->nupd;
 	return 0;
 }
 
 /*
- * rls_update: apply forgetting factor lambda in (0, 1] to the past, then
- * add the record (phi, y) with weight w >= 0 (w = 0 adds no information;
- * the forgetting still applies). When delta > 0 and lambda < 1 one cyclic
- * regularisation row is added as described at the top of this file.
- * Returns E_NUMERIC for non-finite or out-of-range values and E_ARG for a
- * bad weight or lambda; on error the state is bit-for-bit unchanged.
- * Cost: about 2p^2 multiply-adds, p+1 square roots; no allocation.
+ * rls_reg_block: the K for regularised forgetting at a constant lambda
+ * (rls.c, top): the largest K with p K <= 1 / (4 (1 - lambda)), at least
+ * 1 and at most RLS_REG_BLOCK_MAX; 1 for lambda = 1 or out of range.
  */
 int
-rls_update(struct rls *r, const double *phi, double y, double w,
-    double lambda)
+rls_reg_block(int p, double lambda)
 {
-	double row[RLS_MAX_P + 1], reg[RLS_MAX_P + 1];
-	double s, inv, g, *prow = NULL, *preg = NULL;
-	int j, c = 0, p = r->p, n = r->n;
+	double k;
+
+	if (p < 1 || !(lambda > 0) || !(lambda < 1))
+		return 1;
+	k = floor(1.0 / (4.0 * (1.0 - lambda) * (double)p));
+	if (!(k >= 1))
+		return 1;
+	return k > RLS_REG_BLOCK_MAX ? RLS_REG_BLOCK_MAX : (int)k;
+}
+
+/*
+ * The update behind rls_update and rls_update_ap; vap = Ust^-T phi of the
+ * current state (from rls_apriori) or NULL.
+ */
+static int
+update(struct rls *r, const double *phi, double y, double w, double lambda,
+    const double *vap)
+{
+	double row[RLS_MAX_P + 1], reg[RLS_MAX_P + 1], u[RLS_MAX_P];
+	double s, inv;
+	int j, c = 0, p = r->p, n = r->n, have_reg;
 
 	for (j = 0; j < p; j++)
 		if (!finite_bounded(phi[j]))
@@ -442,11 +544,34 @@ rls_update(struct rls *r, const double *phi, double y, double w,
 		for (j = 0; j < p; j++)
 			r->d[j] *= s * s;
 		s = 1.0;
+		vap = NULL;	/* the stored triangle changed */
 	}
 	r->s = s;
 	r->lampow *= lambda;
 	inv = 1.0 / s;
 
+	/* The regularisation row of this record, if it is a K-th one. */
+	have_reg = r->delta > 0 && lambda < 1 &&
+	    r->nupd % (uint64_t)r->regk == (uint64_t)r->regk - 1;
+	if (have_reg) {
+		double wk = 1 - lambda, g;
+		int i;
+
+		if (r->regk > 1) {
+			double lk = lambda;
+
+			for (i = 1; i < r->regk; i++)
+				lk *= lambda;
+			wk = 1 - lk;
+		}
+		c = r->cyc;
+		g = sqrt((double)p * wk * r->delta) * inv;
+		memset(reg, 0, sizeof(double) * (size_t)n);
+		reg[c] = g;
+		reg[p] = g * r->theta_ref[c];
+		r->d[c] += g * g;
+		r->cyc = (c + 1) % p;
+	}
 	if (w > 0) {
 		double sw = sqrt(w) * inv;
 
@@ -455,21 +580,60 @@ rls_update(struct rls *r, const double *phi, double y, double w,
 			r->d[j] += row[j] * row[j];
 		}
 		row[p] = sw * y;
-		prow = row;
+		/* The fast path when rls_apriori gave v (it does so only
+		 * when every pivot is nonzero; v of the scaled row is sw v):
+		 * computing v here would cost as much as it saves. A record
+		 * with a regularisation row takes the sequential rotations,
+		 * both rows in one pass over the triangle (two passes cost
+		 * more at p >= 16). */
+		if (have_reg) {
+			vap = NULL;
+		} else if (vap != NULL) {
+			for (j = 0; j < p; j++)
+				u[j] = sw * vap[j];
+		}
+		if (vap == NULL || rotate_fast(r, row, u) != 0)
+			rotate_in(r, row, have_reg ? reg : NULL, c);
+	} else if (have_reg) {
+		rotate_in(r, NULL, reg, c);
 	}
-	if (r->delta > 0 && lambda < 1) {
-		c = r->cyc;
-		g = sqrt((double)p * (1 - lambda) * r->delta) * inv;
-		memset(reg, 0, sizeof(double) * (size_t)n);
-		reg[c] = g;
-		reg[p] = g * r->theta_ref[c];
-		r->d[c] += g * g;
-		preg = reg;
-		r->cyc = (c + 1) % p;
-	}
-	rotate_in(r, prow, preg, c);
 	r->nupd++;
 	return 0;
+}
+
+/*
+ * rls_update: apply forgetting factor lambda in (0, 1] to the past, then
+ * add the record (phi, y) with weight w >= 0 (w = 0 adds no information;
+ * the forgetting still applies). When delta > 0 and lambda < 1, every
+ * K-th update also adds a regularisation row as described at the top of
+ * this file. Returns E_NUMERIC for non-finite or out-of-range values and
+ * E_ARG for a bad weight or lambda; on error the state is bit-for-bit
+ * unchanged. Cost: about 3p^2/2 multiply-adds for the forward
+ * substitution and the rotations, p + 1 square roots and divisions that
+ * do not wait for each other (rotate_fast); no allocation.
+ */
+int
+rls_update(struct rls *r, const double *phi, double y, double w,
+    double lambda)
+{
+	return update(r, phi, y, w, lambda, NULL);
+}
+
+/*
+ * rls_update_ap: rls_update for the phi that a came from, reusing the
+ * forward substitution rls_apriori(r, phi, a) did. a must have been taken
+ * on r with no state change since (it records r and its update count and
+ * is ignored otherwise). Same results and errors as rls_update.
+ */
+int
+rls_update_ap(struct rls *r, const struct rls_apriori *a, const double *phi,
+    double y, double w, double lambda)
+{
+	const double *vap = NULL;
+
+	if (a != NULL && a->of == r && a->nupd == r->nupd)
+		vap = a->v;
+	return update(r, phi, y, w, lambda, vap);
 }
 
 /*

@@ -14,6 +14,8 @@
 
 #include <stdint.h>
 
+#include "limits.h"
+
 /* Largest absolute value accepted in a regressor or target. Bounding the
  * inputs makes overflow inside the rotations impossible (see rls.c). */
 #define RLS_VALUE_MAX	1e100
@@ -21,6 +23,8 @@
  * column j of the weighted design and the span of columns 0..j-1 exceeds
  * this (scale-invariant rank test; exact collinearity gives ~1e-16). */
 #define RLS_RANK_TOL	1e-12
+/* Largest K of the regularisation rows (rls_opts.reg_block). */
+#define RLS_REG_BLOCK_MAX	4096
 
 struct rls_opts {
 	int		 p;		/* coefficients, 1..RLS_MAX_P */
@@ -32,6 +36,8 @@ struct rls_opts {
 	const double	*theta0;	/* prior mean (p); NULL = no prior */
 	const double	*prior_sd;	/* prior SD per coefficient (p); an
 					 * infinite SD = no prior on that one */
+	int		 reg_block;	/* K: one regularisation row every K
+					 * updates (0 = 1); see rls_reg_block */
 };
 
 /*
@@ -45,6 +51,9 @@ struct rls {
 	double		 s;		/* running scale, true T = s * T */
 	double		 lampow;	/* product of all lambdas applied */
 	double		 delta;		/* regularisation strength */
+	int		 regk;		/* K of the regularisation rows (from
+					 * rls_opts, not part of the saved
+					 * state) */
 	uint64_t	 nupd;		/* updates applied */
 	int		 cyc;		/* next regularised coordinate */
 	double		*T;		/* n*n row-major, upper triangle used */
@@ -58,6 +67,10 @@ struct rls_apriori {
 	int	 rank;		/* number of determined coefficients */
 	double	 yhat;		/* phi' theta_{n-1} (NAN if !determined) */
 	double	 r;		/* phi' P_{n-1} phi (NAN if !determined) */
+	/* For rls_update_ap: the state v belongs to. */
+	const struct rls *of;	/* NULL when v is not set */
+	uint64_t nupd;		/* of->nupd when v was computed */
+	double	 v[RLS_MAX_P];	/* Ust^-T phi (stored scale) */
 };
 
 /* rls_new: allocate and start a model (diffuse or with a prior). */
@@ -74,6 +87,12 @@ int		 rls_apriori(const struct rls *r, const double *phi,
 /* rls_update: forget by lambda, then add the record (phi, y, weight w). */
 int		 rls_update(struct rls *r, const double *phi, double y,
 		    double w, double lambda);
+/* rls_update_ap: rls_update reusing a = rls_apriori(r, phi, a) taken
+ * just before (no state change in between); same results and errors. */
+int		 rls_update_ap(struct rls *r, const struct rls_apriori *a,
+		    const double *phi, double y, double w, double lambda);
+/* rls_reg_block: K for regularisation rows at a constant lambda. */
+int		 rls_reg_block(int p, double lambda);
 /* rls_theta: current coefficients (undetermined ones reported as 0). */
 int		 rls_theta(const struct rls *r, double *theta);
 /* rls_rss: J, the weighted residual sum of squares incl. prior/penalty. */

@@ -7,6 +7,7 @@
  */
 #include <check.h>
 #include <math.h>
+#include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 
@@ -31,6 +32,7 @@ struct oracle_case {
 	double	 delta;
 	int	 prior;		/* 1: start from a prior theta0, sd */
 	double	 scale_hi;	/* spread of column scales (1 = none) */
+	int	 block;		/* K of the regularisation rows (0 = 1) */
 };
 
 static double unit_rows[2 * 4000 + 64][64];
@@ -45,7 +47,7 @@ run_oracle_case(const struct oracle_case *c, double tol)
 	double theta_true[64], theta0[64], sd[64], ref[64], scale[64];
 	double th[64], tho[64], rss_o, *P, *Po;
 	double (*X)[64] = unit_rows;
-	int i, j, k, nr = 0, p = c->p;
+	int i, j, k, nr = 0, p = c->p, kb = c->block > 0 ? c->block : 1;
 
 	ck_assert_int_le(p, 64);
 	ck_assert_int_le(c->n, 4000);
@@ -64,6 +66,7 @@ run_oracle_case(const struct oracle_case *c, double tol)
 	memset(&o, 0, sizeof(o));
 	o.p = p;
 	o.delta = c->delta;
+	o.reg_block = c->block;
 	o.theta_ref = ref;
 	if (c->prior) {
 		o.theta0 = theta0;
@@ -96,13 +99,16 @@ run_oracle_case(const struct oracle_case *c, double tol)
 		rows[nr].y = y;
 		rows[nr].w = decay;
 		nr++;
-		if (c->delta > 0 && c->lambda < 1) {
-			k = i % p;
+		/* Every K-th record one row for the next coordinate, with
+		 * the information of K records: p delta (1 - lambda^K). */
+		if (c->delta > 0 && c->lambda < 1 && i % kb == kb - 1) {
+			k = (i / kb) % p;
 			memset(X[nr], 0, sizeof(X[nr]));
 			X[nr][k] = 1;
 			rows[nr].x = X[nr];
 			rows[nr].y = ref[k];
-			rows[nr].w = p * (1 - c->lambda) * c->delta * decay;
+			rows[nr].w = p * (1 - pow(c->lambda, kb)) * c->delta *
+			    decay;
 			nr++;
 		}
 	}
@@ -154,6 +160,11 @@ START_TEST(test_rls_matches_lapack_oracle)
 			c.delta = 1.0;
 			if (c.lambda < 1)
 				run_oracle_case(&c, 1e-9);
+			/* The blocked rows the model uses (rls_reg_block). */
+			c.block = rls_reg_block(c.p, c.lambda);
+			if (c.lambda < 1 && c.block > 1)
+				run_oracle_case(&c, 1e-9);
+			c.block = 0;
 			c.delta = 0;
 			c.prior = 1;
 			c.n = 1500;
@@ -167,7 +178,7 @@ END_TEST
  * scale invariant, so the oracle still agrees to round-off. */
 START_TEST(test_rls_wild_column_scales)
 {
-	struct oracle_case c = { 6, 2000, 0.995, 0, 0, 1e16 };
+	struct oracle_case c = { 6, 2000, 0.995, 0, 0, 1e16, 0 };
 
 	run_oracle_case(&c, 1e-9);
 	c.lambda = 1;
@@ -180,7 +191,7 @@ END_TEST
  * rank grows by one per record until then. */
 START_TEST(test_rls_exact_start)
 {
-	struct rls_opts o = { 3, 0, NULL, NULL, NULL };
+	struct rls_opts o = { 3, 0, NULL, NULL, NULL, 0 };
 	double X[3][3] = { { 1, 2, 3 }, { 1, -1, 0.5 }, { 1, 4, -2 } };
 	double y[3] = { 14, 0.5, 7 }, th[3], res;
 	struct rls *r = rls_new(&o);
@@ -211,7 +222,7 @@ END_TEST
  */
 START_TEST(test_rls_cost_recursion)
 {
-	struct rls_opts o = { 4, 0, NULL, NULL, NULL };
+	struct rls_opts o = { 4, 0, NULL, NULL, NULL, 0 };
 	struct rls *r = rls_new(&o);
 	struct rls_apriori a;
 	struct rng g;
@@ -244,7 +255,7 @@ END_TEST
  * unchanged (transactional contract of rls_update). */
 START_TEST(test_rls_rejects_bad_input)
 {
-	struct rls_opts o = { 3, 0.5, NULL, NULL, NULL };
+	struct rls_opts o = { 3, 0.5, NULL, NULL, NULL, 0 };
 	struct rls *r = rls_new(&o), *snap = rls_new(&o);
 	double x[3] = { 1, 2, 3 }, bad[3] = { 1, NAN, 3 };
 	double inf[3] = { 1, INFINITY, 3 }, big[3] = { 1, 1e101, 3 };
@@ -275,7 +286,7 @@ END_TEST
 START_TEST(test_rls_bad_options)
 {
 	double th[2] = { 1, 2 }, sd0[2] = { 1, 0 }, sdn[2] = { 1, NAN };
-	struct rls_opts o = { 0, 0, NULL, NULL, NULL };
+	struct rls_opts o = { 0, 0, NULL, NULL, NULL, 0 };
 
 	ck_assert_ptr_null(rls_new(&o));
 	o.p = 1000;
@@ -298,23 +309,26 @@ END_TEST
  * Windup test of NUMERICS.md section 3: p = 3, phi = (1, 0.5, -0.2) for
  * 1e6 records, y = phi' theta* + 0.1 N(0,1), lambda = 0.99. With cyclic
  * regularised forgetting (delta = 1) every quantity stays finite and
- * trace(P) stays under p / (c_min delta), c_min = p (1-lambda)
- * lambda^(p-1) / (1 - lambda^p) (rls.c); the prediction along the excited
+ * trace(P) stays under p / (c_min delta), c_min = p (1-lambda^K)
+ * lambda^(pK-1) / (1 - lambda^(pK)) (rls.c; K = 1 is the plain cyclic
+ * form); the prediction along the excited
  * direction stays at noise level. Without the remedy trace(P) explodes
  * (checked over 1e5 records). When excitation returns the model
  * re-converges within 5 memory lengths.
  */
-START_TEST(test_rls_windup_bounded)
+static void
+windup_case(int kb)
 {
 	const double lam = 0.99, th_true[3] = { 2, -1, 0.5 };
 	const double phi_c[3] = { 1, 0.5, -0.2 };
-	struct rls_opts o = { 3, 1.0, NULL, NULL, NULL };
+	struct rls_opts o = { 3, 1.0, NULL, NULL, NULL, kb };
 	struct rls *r = rls_new(&o), *bare;
 	struct rng g;
 	double th[3], tr, maxtr = 0, cmin, bound, yc = 0, x[3];
 	int i, j;
 
-	cmin = 3 * (1 - lam) * pow(lam, 2) / (1 - pow(lam, 3));
+	cmin = 3 * (1 - pow(lam, kb)) * pow(lam, 3 * kb - 1) /
+	    (1 - pow(lam, 3 * kb));
 	bound = 3 / (cmin * o.delta);
 	for (j = 0; j < 3; j++)
 		yc += phi_c[j] * th_true[j];
@@ -326,7 +340,8 @@ START_TEST(test_rls_windup_bounded)
 			ck_assert_int_eq(rls_trace_p(r, &tr), 0);
 			ck_assert(isfinite(tr));
 			ck_assert_msg(tr <= bound,
-			    "trace P %g > bound %g at %d", tr, bound, i);
+			    "K %d: trace P %g > bound %g at %d", kb, tr, bound,
+			    i);
 			if (tr > maxtr)
 				maxtr = tr;
 		}
@@ -335,6 +350,8 @@ START_TEST(test_rls_windup_bounded)
 	for (j = 0; j < 3; j++)
 		ck_assert(isfinite(th[j]));
 	ck_assert_double_eq_tol(th[0] + 0.5 * th[1] - 0.2 * th[2], yc, 0.1);
+	fprintf(stderr, "windup, K = %d: max trace P %.4g, bound %.4g\n", kb,
+	    maxtr, bound);
 
 	/* Unprotected: the same stream drives trace(P) past 1e30. */
 	o.delta = 0;
@@ -365,6 +382,14 @@ START_TEST(test_rls_windup_bounded)
 		ck_assert_double_eq_tol(th[j], th_true[j], 0.05);
 	rls_free(r);
 }
+
+/* Both the plain cyclic rows (K = 1) and the blocked ones the model uses
+ * at lambda = 0.99, p = 3 (K = 8). */
+START_TEST(test_rls_windup_bounded)
+{
+	windup_case(1);
+	windup_case(rls_reg_block(3, 0.99));
+}
 END_TEST
 
 /* Step change tracking: lambda = 0.98 (memory 50); theta jumps at record
@@ -372,7 +397,7 @@ END_TEST
  * noise (SE ~ 0.1 / sqrt(50) ~ 0.015). */
 START_TEST(test_rls_tracks_step)
 {
-	struct rls_opts o = { 2, 0, NULL, NULL, NULL };
+	struct rls_opts o = { 2, 0, NULL, NULL, NULL, 0 };
 	struct rls *r = rls_new(&o);
 	struct rng g;
 	double x[2], th[2];
@@ -402,7 +427,7 @@ END_TEST
  * estimate is finite and >= 1. */
 START_TEST(test_rls_cov_is_spd)
 {
-	struct rls_opts o = { 5, 0, NULL, NULL, NULL };
+	struct rls_opts o = { 5, 0, NULL, NULL, NULL, 0 };
 	struct rls *r = rls_new(&o);
 	struct rng g;
 	double x[5], P[25], C[25], dp[5], kappa;
@@ -435,7 +460,7 @@ END_TEST
  * regularised forgetting the ridge rows make the model determined. */
 START_TEST(test_rls_collinear)
 {
-	struct rls_opts o = { 3, 0, NULL, NULL, NULL };
+	struct rls_opts o = { 3, 0, NULL, NULL, NULL, 0 };
 	struct rls *r = rls_new(&o);
 	struct rls_apriori a;
 	struct rng g;
@@ -479,7 +504,7 @@ END_TEST
  * from the LAPACK covariance. */
 START_TEST(test_rls_mahal)
 {
-	struct rls_opts o = { 3, 0, NULL, NULL, NULL };
+	struct rls_opts o = { 3, 0, NULL, NULL, NULL, 0 };
 	struct rls *r = rls_new(&o);
 	struct rng g;
 	double x[3], th[3], ref[3] = { 0.5, -1, 2 }, P[9], d2, q = 0, dv[3];

@@ -78,14 +78,16 @@ state_finite(const struct model *m)
 
 /*
  * The trace bound of regularised forgetting (Kulhavy & Zarrop 1993, in
- * the cyclic form of rls.c and README "Windup"): trace(P) <=
- * p / (c_min delta), c_min = p (1-lambda) lambda^(p-1) / (1 - lambda^p).
+ * the blocked cyclic form of rls.c and README "Windup"): trace(P) <=
+ * p / (c_min delta), c_min = p (1-lambda^K) lambda^(pK-1) /
+ * (1 - lambda^(pK)), with the K the model uses (rls_reg_block).
  */
 static double
 trace_bound(int p, double lambda, double delta)
 {
-	double cmin = p * (1 - lambda) * pow(lambda, p - 1) /
-	    (1 - pow(lambda, p));
+	int k = rls_reg_block(p, lambda);
+	double cmin = p * (1 - pow(lambda, k)) * pow(lambda, p * k - 1) /
+	    (1 - pow(lambda, p * k));
 
 	return p / (cmin * delta);
 }

@@ -98,6 +98,16 @@ struct rls_ctx {
 	long		 i;
 };
 
+/* Forgetting factor of the engine runs: 0.99, or BENCH_LAMBDA. */
+static double
+bench_lambda(void)
+{
+	const char *s = getenv("BENCH_LAMBDA");
+	double l = s != NULL ? atof(s) : 0;
+
+	return l > 0 && l <= 1 ? l : 0.99;
+}
+
 static void
 work_rls(void *arg, long n)
 {
@@ -108,7 +118,7 @@ work_rls(void *arg, long n)
 		int i = (int)(c->i++ & (NDATA - 1));
 
 		rls_update(c->r, c->phi + (size_t)i * (size_t)c->p, c->y[i],
-		    1.0, 0.99);
+		    1.0, bench_lambda());
 	}
 }
 
@@ -172,9 +182,9 @@ bench_model(int p)
 	struct model_opts o;
 
 	/* The daemon's defaults (regularised forgetting delta = 1e-6,
-	 * detectors on) with lambda 0.99. */
+	 * detectors on) with lambda 0.99 unless BENCH_LAMBDA says. */
 	model_opts_default(&o, p, 1);
-	o.lambda = 0.99;
+	o.lambda = bench_lambda();
 	return model_new(&o);
 }
 
@@ -205,6 +215,7 @@ cmd_engine(int argc, char **argv, int runs)
 		memset(&ro, 0, sizeof(ro));
 		ro.p = p;
 		ro.delta = 1e-6;
+		ro.reg_block = rls_reg_block(p, bench_lambda());
 		memset(&rc, 0, sizeof(rc));
 		if ((rc.r = rls_new(&ro)) == NULL)
 			return 1;
