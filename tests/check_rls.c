@@ -533,6 +533,67 @@ START_TEST(test_rls_mahal)
 }
 END_TEST
 
+/*
+ * The fast path (rls_apriori + rls_update_ap: rotations from the prefix
+ * sums of v = Ust^-T phi) against the sequential Givens rotations of
+ * rls_update on the same stream, with blocked regularisation rows so
+ * both paths run: the same estimate to round-off, and rls_update_ap
+ * ignores an a-priori taken before a state change.
+ */
+START_TEST(test_rls_fast_path_agrees)
+{
+	static const int ps[] = { 1, 2, 4, 8, 16, 33 };
+	struct rls_opts o;
+	struct rls_apriori a;
+	struct rng g;
+	double x[33], t1[33], t2[33], y;
+	size_t c;
+	int i, j;
+
+	for (c = 0; c < sizeof(ps) / sizeof(ps[0]); c++) {
+		struct rls *r1, *r2;
+		int p = ps[c];
+
+		memset(&o, 0, sizeof(o));
+		o.p = p;
+		o.delta = 1e-3;
+		o.reg_block = 5;
+		r1 = rls_new(&o);
+		r2 = rls_new(&o);
+		rng_seed(&g, 77 + (unsigned)p);
+		for (i = 0; i < 3000; i++) {
+			x[0] = 1;
+			for (j = 1; j < p; j++)
+				x[j] = 10 * rng_norm(&g);
+			y = x[0] + (p > 1 ? 0.5 * x[1] : 0) + rng_norm(&g);
+			ck_assert_int_eq(rls_update(r1, x, y, 1, 0.98), 0);
+			ck_assert_int_eq(rls_apriori(r2, x, &a), 0);
+			ck_assert_int_eq(rls_update_ap(r2, &a, x, y, 1, 0.98),
+			    0);
+		}
+		rls_theta(r1, t1);
+		rls_theta(r2, t2);
+		ck_assert_msg(relerr(t2, t1, p) <= 1e-10,
+		    "p=%d: theta relerr %.3g", p, relerr(t2, t1, p));
+		ck_assert_double_eq_tol(rls_rss(r2), rls_rss(r1),
+		    1e-10 * rls_rss(r1));
+		/* A stale a-priori (the state moved on) is not used. */
+		ck_assert_int_eq(rls_apriori(r2, x, &a), 0);
+		ck_assert_int_eq(rls_update(r1, x, 1, 1, 0.98), 0);
+		ck_assert_int_eq(rls_update(r2, x, 1, 1, 0.98), 0);
+		x[0] = 2;
+		ck_assert_int_eq(rls_update(r1, x, 3, 1, 0.98), 0);
+		ck_assert_int_eq(rls_update_ap(r2, &a, x, 3, 1, 0.98), 0);
+		rls_theta(r1, t1);
+		rls_theta(r2, t2);
+		ck_assert_msg(relerr(t2, t1, p) <= 1e-10,
+		    "p=%d stale: theta relerr %.3g", p, relerr(t2, t1, p));
+		rls_free(r1);
+		rls_free(r2);
+	}
+}
+END_TEST
+
 Suite *
 rls_suite(void)
 {
@@ -542,6 +603,7 @@ rls_suite(void)
 
 	tcase_set_timeout(tc, 120);
 	tcase_add_test(tc, test_rls_matches_lapack_oracle);
+	tcase_add_test(tc, test_rls_fast_path_agrees);
 	tcase_add_test(tc, test_rls_wild_column_scales);
 	tcase_add_test(tc, test_rls_exact_start);
 	tcase_add_test(tc, test_rls_cost_recursion);
