@@ -85,7 +85,10 @@ same_f64s(const double *a, const double *b, size_t n, const char *what)
 {
 	size_t i;
 
-	for (i = 0; i < n; i++)
+	/* An absent vector (NULL) matches only an absent one. */
+	ck_assert_msg((a == NULL) == (b == NULL), "%s: present in one only",
+	    what);
+	for (i = 0; a != NULL && i < n; i++)
 		ck_assert_msg(memcmp(&a[i], &b[i], sizeof(double)) == 0,
 		    "%s[%zu]: %.17g != %.17g", what, i, a[i], b[i]);
 }
@@ -146,11 +149,12 @@ same_entry(const struct reg_entry *a, const struct reg_entry *b)
 	ck_assert_int_eq(m->o.tol_pct == NULL, n->o.tol_pct == NULL);
 	ck_assert(n->o.theta0 == NULL || n->o.theta0 == n->theta0);
 	ck_assert(n->o.tol_pct == NULL || n->o.tol_pct == n->tol_pct);
-	same_f64s(m->theta0, n->theta0, p, "theta0");
-	same_f64s(m->prior_sd, n->prior_sd, p, "prior_sd");
-	same_f64s(m->reference, n->reference, p, "reference");
-	same_f64s(m->tol_abs, n->tol_abs, p, "tol_abs");
-	same_f64s(m->tol_pct, n->tol_pct, p, "tol_pct");
+	/* Vectors in force (a model stores only the configured ones). */
+	same_f64s(m->o.theta0, n->o.theta0, p, "theta0");
+	same_f64s(m->o.prior_sd, n->o.prior_sd, p, "prior_sd");
+	same_f64s(m->o.reference, n->o.reference, p, "reference");
+	same_f64s(m->o.tol_abs, n->o.tol_abs, p, "tol_abs");
+	same_f64s(m->o.tol_pct, n->o.tol_pct, p, "tol_pct");
 	same_f64s(m->theta_pin, n->theta_pin, p, "theta_pin");
 
 	/* Engine. */
