@@ -25,6 +25,7 @@
  *             configured reference. Compared with the chi-square
  *             (1 - drift_alpha) quantile with p degrees of freedom.
  */
+#include <assert.h>
 #include <math.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -150,6 +151,7 @@ rls_opts_of(const struct model *m, struct rls_opts *ro)
 	ro->reg_block = m->o.tau > 0 ? 1 : rls_reg_block(m->o.p, m->o.lambda);
 }
 
+/* Point *slot at a copy of src (p values) in dst, or NULL when absent. */
 static void
 copy_opt(double *dst, const double *src, int p, const double **slot)
 {
@@ -198,21 +200,32 @@ model_new(const struct model_opts *o)
 	struct model *m;
 	struct rls_opts ro;
 	double *a;
-	size_t p;
+	size_t p, n;
 
 	if (model_opts_check(o, NULL, 0) != 0)
 		return NULL;
 	p = (size_t)o->p;
-	if ((m = calloc(1, sizeof(*m) + 6 * p * sizeof(double))) == NULL)
+	/* One block: the model, theta_pin, then only the optional vectors
+	 * that are configured. */
+	n = 1 + (o->theta0 != NULL) + (o->prior_sd != NULL) +
+	    (o->reference != NULL) + (o->tol_abs != NULL) +
+	    (o->tol_pct != NULL);
+	if ((m = calloc(1, sizeof(*m) + n * p * sizeof(double))) == NULL)
 		return NULL;
 	m->o = *o;
 	a = (double *)(m + 1);
-	m->theta0 = a;
-	m->prior_sd = a + p;
-	m->reference = a + 2 * p;
-	m->tol_abs = a + 3 * p;
-	m->tol_pct = a + 4 * p;
-	m->theta_pin = a + 5 * p;
+	m->theta_pin = a;
+	a += p;
+	if (o->theta0 != NULL)
+		a += p, m->theta0 = a - p;
+	if (o->prior_sd != NULL)
+		a += p, m->prior_sd = a - p;
+	if (o->reference != NULL)
+		a += p, m->reference = a - p;
+	if (o->tol_abs != NULL)
+		a += p, m->tol_abs = a - p;
+	if (o->tol_pct != NULL)
+		m->tol_pct = a;
 	copy_opt(m->theta0, o->theta0, o->p, &m->o.theta0);
 	copy_opt(m->prior_sd, o->prior_sd, o->p, &m->o.prior_sd);
 	copy_opt(m->reference, o->reference, o->p, &m->o.reference);
@@ -228,7 +241,7 @@ model_new(const struct model_opts *o)
 	return m;
 }
 
-/* model_free: release m and its engine; NULL is a no-op. */
+/* model_free: release m, its engine and its term set; NULL is a no-op. */
 void
 model_free(struct model *m)
 {
@@ -237,7 +250,44 @@ model_free(struct model *m)
 	rls_free(m->rls);
 	terms_free(m->terms);
 	free(m->xprev);
+	free(m->tol_extra);
 	free(m);
+}
+
+/*
+ * model_set_tol: use per-coefficient drift tolerances tol_abs and tol_pct
+ * (p values each, copied; NULL: none) from the next record on. Storage is
+ * allocated when the model had none for a vector (a reload that adds
+ * tolerances). Returns 0, or E_NOMEM with the tolerances unchanged.
+ */
+int
+model_set_tol(struct model *m, const double *tol_abs, const double *tol_pct)
+{
+	size_t p = (size_t)m->o.p;
+
+	if ((tol_abs != NULL && m->tol_abs == NULL) ||
+	    (tol_pct != NULL && m->tol_pct == NULL)) {
+		double *x;
+
+		/* Both vectors get storage here, so this happens once. */
+		assert(m->tol_extra == NULL);
+		if ((x = calloc(2 * p, sizeof(double))) == NULL)
+			return E_NOMEM;
+		if (m->tol_abs != NULL)
+			memcpy(x, m->tol_abs, sizeof(double) * p);
+		if (m->tol_pct != NULL)
+			memcpy(x + p, m->tol_pct, sizeof(double) * p);
+		m->tol_extra = x;
+		m->tol_abs = x;
+		m->tol_pct = x + p;
+		if (m->o.tol_abs != NULL)
+			m->o.tol_abs = m->tol_abs;
+		if (m->o.tol_pct != NULL)
+			m->o.tol_pct = m->tol_pct;
+	}
+	copy_opt(m->tol_abs, tol_abs, m->o.p, &m->o.tol_abs);
+	copy_opt(m->tol_pct, tol_pct, m->o.p, &m->o.tol_pct);
+	return 0;
 }
 
 static double
@@ -622,16 +672,14 @@ model_reset(struct model *m)
 int
 model_set_terms(struct model *m, struct terms *t, int scale_auto)
 {
-	int nf;
-
 	if (t == NULL || terms_p(t) != m->o.p || m->n_seen != 0 ||
 	    m->terms != NULL) {
 		terms_free(t);
 		return E_ARG;
 	}
-	nf = terms_nfields(t);
-	if ((m->xprev = calloc((size_t)(nf > 0 ? nf : 1), sizeof(double))) ==
-	    NULL) {
+	/* The previous record is only read by prev() terms. */
+	if (terms_uses_prev(t) && (m->xprev = calloc((size_t)terms_nfields(t),
+	    sizeof(double))) == NULL) {
 		terms_free(t);
 		return E_NOMEM;
 	}
@@ -670,7 +718,8 @@ model_ingest(struct model *m, const double *x, double y, double w, double t,
 		return rc;
 	rc = terms_ingest(m->terms, x, m->has_prev ? m->xprev : NULL, phi);
 	if (rc == E_STATE) {
-		memcpy(m->xprev, x, sizeof(double) * (size_t)nf);
+		if (m->xprev != NULL)
+			memcpy(m->xprev, x, sizeof(double) * (size_t)nf);
 		m->has_prev = 1;
 		m->n_primed++;
 		if (out != NULL) {
@@ -683,7 +732,8 @@ model_ingest(struct model *m, const double *x, double y, double w, double t,
 		return rc;
 	if ((rc = model_step(m, phi, y, w, t, out)) != 0)
 		return rc;
-	memcpy(m->xprev, x, sizeof(double) * (size_t)nf);
+	if (m->xprev != NULL)
+		memcpy(m->xprev, x, sizeof(double) * (size_t)nf);
 	m->has_prev = 1;
 	return 0;
 }

@@ -66,15 +66,20 @@ struct model {
 	double		 pin_sigma;	/* sigma_ref when pinned */
 	double		 last_t;	/* time of the last used record */
 	int		 has_last_t;
+	int		 scale_auto;	/* scale from the first record */
 	uint64_t	 n_seen;	/* valid records stepped */
 	uint64_t	 n_used;	/* records that updated the fit */
 	uint64_t	 n_frozen;	/* records seen while frozen */
+	/* Storage of the optional vectors (p each): NULL when the model was
+	 * created without that setting; o's pointers say which are in
+	 * force. */
 	double		*theta0, *prior_sd, *reference, *tol_abs, *tol_pct;
+	double		*tol_extra;	/* owned: tolerances added by a reload */
 	double		*theta_pin;	/* p, in the engine's (scaled) terms */
 	struct terms	*terms;		/* owned; NULL: callers give phi */
-	int		 scale_auto;	/* scale from the first record */
-	int		 has_prev;	/* xprev holds the previous record */
-	double		*xprev;		/* nfields raw values */
+	int		 has_prev;	/* a previous record was seen */
+	double		*xprev;		/* nfields raw values; only with
+					 * prev() terms, else NULL */
 	uint64_t	 n_primed;	/* records that only primed xprev */
 };
 
@@ -109,6 +114,9 @@ int		 model_step(struct model *m, const double *phi, double y,
 /* model_set_terms: attach derived terms (ownership passes to m). */
 int		 model_set_terms(struct model *m, struct terms *t,
 		    int scale_auto);
+/* model_set_tol: new drift tolerances (reload); may allocate. */
+int		 model_set_tol(struct model *m, const double *tol_abs,
+		    const double *tol_pct);
 /* model_ingest: one record of raw field values through the terms. */
 int		 model_ingest(struct model *m, const double *x, double y,
 		    double w, double t, struct model_step_out *out);

@@ -235,6 +235,24 @@ put_f64s(struct wr *w, const double *a, size_t n)
 		put_f64(w, a[i]);
 }
 
+/* n doubles of a, or n zeros when a is NULL (an absent vector). */
+static void
+put_f64s_or0(struct wr *w, const double *a, size_t n)
+{
+	static const double zeros[64];
+	size_t k;
+
+	if (a != NULL) {
+		put_f64s(w, a, n);
+		return;
+	}
+	while (n > 0) {
+		k = n < 64 ? n : 64;
+		put_f64s(w, zeros, k);
+		n -= k;
+	}
+}
+
 static void
 put_i32(struct wr *w, int v)
 {
@@ -532,17 +550,11 @@ persist_jnl_hdr_decode(const uint8_t *buf, size_t len,
 static void
 put_terms_text(struct wr *w, const struct terms *t)
 {
-	size_t len = 0;
-	int j, j0 = terms_has_intercept(t), p = terms_p(t);
+	size_t len;
+	const char *list = terms_list(t, &len);
 
-	for (j = j0; j < p; j++)
-		len += strlen(terms_text(t, j)) + (j > j0 ? 2 : 0);
 	put_u32(w, (uint32_t)len);
-	for (j = j0; j < p; j++) {
-		if (j > j0)
-			put_bytes(w, ", ", 2);
-		put_bytes(w, terms_text(t, j), strlen(terms_text(t, j)));
-	}
+	put_bytes(w, list, len);
 }
 
 static void
@@ -601,11 +613,12 @@ model_body(struct wr *w, const struct reg_entry *e)
 	mask |= m->o.tol_pct != NULL ? OPT_TOL_PCT : 0;
 	put_u8(w, mask);
 	put_alarm_opts(w, &m->o.alarm);
-	put_f64s(w, m->theta0, p);
-	put_f64s(w, m->prior_sd, p);
-	put_f64s(w, m->reference, p);
-	put_f64s(w, m->tol_abs, p);
-	put_f64s(w, m->tol_pct, p);
+	/* A vector not in force is written as zeros. */
+	put_f64s_or0(w, m->o.theta0, p);
+	put_f64s_or0(w, m->o.prior_sd, p);
+	put_f64s_or0(w, m->o.reference, p);
+	put_f64s_or0(w, m->o.tol_abs, p);
+	put_f64s_or0(w, m->o.tol_pct, p);
 	put_f64s(w, m->theta_pin, p);
 
 	/* Terms and their state. */
@@ -617,7 +630,7 @@ model_body(struct wr *w, const struct reg_entry *e)
 	put_f64s(w, scale, tnf);
 	put_u8(w, m->scale_auto != 0);
 	put_u8(w, m->has_prev != 0);
-	put_f64s(w, m->xprev, tnf);
+	put_f64s_or0(w, m->xprev, tnf);	/* kept for prev() terms only */
 	put_u64(w, m->n_primed);
 
 	/* Engine. */
@@ -856,51 +869,243 @@ get_alarm_opts(struct rd *r, struct alarm_opts *a)
 struct saved_opts {
 	struct model_opts mo;
 	unsigned	 mask;
-	double		*arr;		/* 6 p: theta0 .. theta_pin */
+	double		 arr[6 * RLS_MAX_P];	/* theta0 .. theta_pin */
+	char		 names[PROTO_MAX_VALUES + 1][FIELD_NAME_MAX + 1];
 };
 
-/* Compile the saved term list over the saved fields; check it gives the
- * same coefficients in the same order. */
-static int
-rebuild_terms(const struct reg_entry *e, const char *text, int intercept,
-    int p, struct terms **out, char *errbuf, size_t errlen)
+/*
+ * Compiled term lists met during one restore, keyed by what a block saves
+ * of them (field names, intercept, term list), so that the models of one
+ * shape share one compiled form and the list is compiled once per shape,
+ * not once per model. Open addressing, linear probing, FNV-1a; holds one
+ * reference to each form (a term set of its own).
+ */
+struct persist_cache {
+	struct terms	**slot;
+	uint64_t	 *hash;
+	size_t		  cap;		/* power of two */
+	size_t		  n;
+};
+
+/*
+ * persist_cache_new: an empty cache of compiled term lists for
+ * persist_model_decode_cached. NULL when out of memory. The caller frees it
+ * with persist_cache_free; models decoded with it stay valid after that.
+ */
+struct persist_cache *
+persist_cache_new(void)
 {
-	const char *names[PROTO_MAX_VALUES + 1];
+	struct persist_cache *c;
+
+	if ((c = calloc(1, sizeof(*c))) == NULL)
+		return NULL;
+	c->cap = 16;
+	if ((c->slot = calloc(c->cap, sizeof(*c->slot))) == NULL ||
+	    (c->hash = calloc(c->cap, sizeof(*c->hash))) == NULL) {
+		free(c->slot);
+		free(c);
+		return NULL;
+	}
+	return c;
+}
+
+/* persist_cache_free: drop the cache's references; NULL is a no-op. */
+void
+persist_cache_free(struct persist_cache *c)
+{
+	size_t i;
+
+	if (c == NULL)
+		return;
+	for (i = 0; i < c->cap; i++)
+		terms_free(c->slot[i]);
+	free(c->slot);
+	free(c->hash);
+	free(c);
+}
+
+static uint64_t
+fnv(uint64_t h, const void *p, size_t len)
+{
+	const unsigned char *b = p;
+	size_t i;
+
+	for (i = 0; i < len; i++) {
+		h ^= b[i];
+		h *= 1099511628211ULL;
+	}
+	return h;
+}
+
+static uint64_t
+shape_hash(const struct saved_opts *so, int nf, const uint8_t *text,
+    size_t tlen)
+{
+	uint64_t h = 1469598103934665603ULL;
+	int f;
+
+	h = fnv(h, &so->mo.intercept, sizeof(so->mo.intercept));
+	for (f = 0; f < nf; f++)
+		h = fnv(h, so->names[f], strlen(so->names[f]) + 1);
+	return fnv(h, text, tlen);
+}
+
+/* Does the compiled t have these saved fields (nf, the target last),
+ * intercept and canonical term list? */
+static int
+shape_is(const struct terms *t, const struct saved_opts *so, int nf,
+    const uint8_t *text, size_t tlen)
+{
+	const char (*names)[FIELD_NAME_MAX + 1];
+	const char *list;
+	size_t len;
+	int f;
+
+	list = terms_list(t, &len);
+	if (terms_nfields(t) != nf || terms_has_intercept(t) !=
+	    so->mo.intercept || len != tlen || memcmp(list, text, len) != 0)
+		return 0;
+	names = terms_fields(t);
+	for (f = 0; f < nf; f++)
+		if (strcmp(names[f], so->names[f]) != 0)
+			return 0;
+	return 1;
+}
+
+static size_t
+cache_probe(const struct persist_cache *c, uint64_t h,
+    const struct saved_opts *so, int nf, const uint8_t *text, size_t tlen)
+{
+	size_t i = (size_t)h & (c->cap - 1);
+
+	while (c->slot[i] != NULL && (c->hash[i] != h ||
+	    !shape_is(c->slot[i], so, nf, text, tlen)))
+		i = (i + 1) & (c->cap - 1);
+	return i;
+}
+
+/* Keep t (a reference of the cache's own) under hash h. E_NOMEM when the
+ * table cannot grow (t is then not kept; the caller frees it). */
+static int
+cache_add(struct persist_cache *c, uint64_t h, struct terms *t)
+{
+	struct terms **os = c->slot, **ns;
+	uint64_t *oh = c->hash, *nh;
+	size_t i, k, ocap = c->cap;
+
+	if ((c->n + 1) * 10 > c->cap * 7) {
+		ns = calloc(ocap * 2, sizeof(*ns));
+		nh = calloc(ocap * 2, sizeof(*nh));
+		if (ns == NULL || nh == NULL) {
+			free(ns);
+			free(nh);
+			return E_NOMEM;
+		}
+		c->slot = ns;
+		c->hash = nh;
+		c->cap = ocap * 2;
+		for (i = 0; i < ocap; i++) {
+			if (os[i] == NULL)
+				continue;
+			for (k = (size_t)oh[i] & (c->cap - 1);
+			    c->slot[k] != NULL; k = (k + 1) & (c->cap - 1))
+				;
+			c->slot[k] = os[i];
+			c->hash[k] = oh[i];
+		}
+		free(os);
+		free(oh);
+	}
+	for (i = (size_t)h & (c->cap - 1); c->slot[i] != NULL;
+	    i = (i + 1) & (c->cap - 1))
+		;
+	c->slot[i] = t;
+	c->hash[i] = h;
+	c->n++;
+	return 0;
+}
+
+/* Compile the saved term list over the saved fields (nf, the target
+ * last); check it gives p coefficients and compiles back to the same
+ * text. */
+static int
+rebuild_terms(const struct saved_opts *so, int nf, const char *text,
+    struct terms **out, char *errbuf, size_t errlen)
+{
+	const char *names[PROTO_MAX_VALUES + 1], *list;
 	struct terms *t;
-	struct wr w = { NULL, 0, 0, 0 };
-	char *again;
+	size_t len;
 	int f, rc, tp;
 
 	*out = NULL;
-	for (f = 0; f <= e->nfields; f++)
-		names[f] = e->fields[f];
-	if ((rc = terms_parse(text, names, e->nfields + 1, e->nfields,
-	    intercept, &t, errbuf, errlen)) != 0)
+	for (f = 0; f < nf; f++)
+		names[f] = so->names[f];
+	if ((rc = terms_parse(text, names, nf, nf - 1, so->mo.intercept, &t,
+	    errbuf, errlen)) != 0)
 		return rc == E_NOMEM ? rc : E_CORRUPT;
-	put_terms_text(&w, t);
-	if ((tp = terms_p(t)) != p) {
+	if ((tp = terms_p(t)) != so->mo.p) {
 		err_printf(errbuf, errlen, "term list gives %d coefficients, "
-		    "not %d", tp, p);
+		    "not %d", tp, so->mo.p);
 		terms_free(t);
 		return E_CORRUPT;
 	}
-	if ((again = malloc(w.n)) == NULL) {
-		terms_free(t);
-		return E_NOMEM;
-	}
-	w.buf = (uint8_t *)again;
-	w.cap = w.n;
-	w.n = 0;
-	put_terms_text(&w, t);
-	rc = w.n - 4 != strlen(text) || memcmp(again + 4, text, w.n - 4) != 0;
-	free(again);
-	if (rc) {
+	list = terms_list(t, &len);
+	if (len != strlen(text) || memcmp(list, text, len) != 0) {
 		err_printf(errbuf, errlen, "term list does not compile back to "
 		    "the same terms");
 		terms_free(t);
 		return E_CORRUPT;
 	}
 	*out = t;
+	return 0;
+}
+
+/*
+ * The compiled term list of a block (saved text[0..tlen)) as a term set of
+ * the model's own: a clone of the cached form when the cache has it,
+ * otherwise compiled (and kept in the cache when there is one). room as
+ * for terms_clone.
+ */
+static int
+block_terms(struct persist_cache *c, const struct saved_opts *so, int nf,
+    const uint8_t *tb, size_t tlen, int room, struct terms **out,
+    char *errbuf, size_t errlen)
+{
+	struct terms *t;
+	uint64_t h = 0;
+	size_t i = 0;
+	char *text;
+	int rc;
+
+	*out = NULL;
+	if (c != NULL) {
+		h = shape_hash(so, nf, tb, tlen);
+		i = cache_probe(c, h, so, nf, tb, tlen);
+		if (c->slot[i] != NULL) {
+			if ((*out = terms_clone(c->slot[i], room)) == NULL)
+				return E_NOMEM;
+			return 0;
+		}
+	}
+	if ((text = malloc(tlen + 1)) == NULL)
+		return E_NOMEM;
+	memcpy(text, tb, tlen);
+	text[tlen] = '\0';
+	rc = rebuild_terms(so, nf, text, &t, errbuf, errlen);
+	free(text);
+	if (rc != 0)
+		return rc;
+	if (c == NULL) {
+		*out = t;
+		return 0;
+	}
+	/* The parsed set goes to the cache; the model gets a clone. */
+	if (cache_add(c, h, t) != 0) {
+		terms_free(t);
+		return E_NOMEM;
+	}
+	if ((*out = terms_clone(t, room)) == NULL)
+		return E_NOMEM;
 	return 0;
 }
 
@@ -919,11 +1124,8 @@ decode_head(struct rd *r, struct reg_entry *e, struct saved_opts *so)
 	e->nfields = (int)get_u32(r);
 	if (r->bad || e->nfields < 1 || e->nfields > PROTO_MAX_VALUES)
 		return E_CORRUPT;
-	if ((e->fields = calloc((size_t)e->nfields + 1,
-	    sizeof(*e->fields))) == NULL)
-		return E_NOMEM;
 	for (f = 0; f <= e->nfields; f++)
-		get_str(r, 1, e->fields[f], FIELD_NAME_MAX);
+		get_str(r, 1, so->names[f], FIELD_NAME_MAX);
 	e->n_rejected = get_u64(r);
 	e->n_updates = get_u64(r);
 
@@ -943,8 +1145,6 @@ decode_head(struct rd *r, struct reg_entry *e, struct saved_opts *so)
 	    (so->mask & ~0x1fu) != 0)
 		return E_CORRUPT;
 	p = (size_t)so->mo.p;
-	if ((so->arr = calloc(6 * p, sizeof(double))) == NULL)
-		return E_NOMEM;
 	get_f64s(r, so->arr, 6 * p);
 	so->mo.theta0 = so->mask & OPT_THETA0 ? so->arr : NULL;
 	so->mo.prior_sd = so->mask & OPT_PRIOR_SD ? so->arr + p : NULL;
@@ -957,16 +1157,16 @@ decode_head(struct rd *r, struct reg_entry *e, struct saved_opts *so)
 /* Everything after the settings, into the freshly built model m. */
 static int
 decode_state(struct rd *r, struct reg_entry *e, const struct saved_opts *so,
-    char *errbuf, size_t errlen)
+    struct persist_cache *c, char *errbuf, size_t errlen)
 {
 	struct model *m;
 	struct terms *t = NULL;
 	struct rls *rl;
 	double centre[PROTO_MAX_VALUES + 1], scale[PROTO_MAX_VALUES + 1];
+	double xprev[PROTO_MAX_VALUES + 1];
 	const uint8_t *tb;
-	char *text;
 	size_t p = (size_t)so->mo.p, tnf, tlen, rows;
-	int d, rc, set, scale_auto;
+	int d, rc, set, scale_auto, has_prev;
 
 	if ((e->m = m = model_new(&so->mo)) == NULL) {
 		err_printf(errbuf, errlen, "saved settings are invalid");
@@ -976,47 +1176,50 @@ decode_state(struct rd *r, struct reg_entry *e, const struct saved_opts *so,
 	if (r->bad || tlen == 0 || tlen > (1u << 24) ||
 	    (tb = get_bytes(r, tlen)) == NULL || memchr(tb, 0, tlen) != NULL)
 		return E_CORRUPT;
-	if ((text = malloc(tlen + 1)) == NULL)
-		return E_NOMEM;
-	memcpy(text, tb, tlen);
-	text[tlen] = '\0';
-	rc = rebuild_terms(e, text, so->mo.intercept, so->mo.p, &t, errbuf,
-	    errlen);
-	free(text);
-	if (rc != 0)
-		return rc;
 	tnf = get_u32(r);
 	set = get_bool(r);
-	if (r->bad || tnf != (size_t)e->nfields + 1) {
-		terms_free(t);
+	if (r->bad || tnf != (size_t)e->nfields + 1)
 		return E_CORRUPT;
-	}
 	get_f64s(r, centre, tnf);
 	get_f64s(r, scale, tnf);
 	scale_auto = get_bool(r);
-	if (r->bad || (set && terms_set_scaling(t, centre, scale) != 0)) {
+	has_prev = get_bool(r);
+	get_f64s(r, xprev, tnf);
+	if (r->bad)
+		return E_CORRUPT;
+	if ((rc = block_terms(c, so, (int)tnf, tb, tlen, set || scale_auto,
+	    &t, errbuf, errlen)) != 0)
+		return rc;
+	if (set && terms_set_scaling(t, centre, scale) != 0) {
 		err_printf(errbuf, errlen, "saved scaling constants refused");
 		terms_free(t);
 		return E_CORRUPT;
 	}
 	if ((rc = model_set_terms(m, t, scale_auto)) != 0)
 		return rc == E_NOMEM ? rc : E_CORRUPT;
-	m->has_prev = get_bool(r);
-	get_f64s(r, m->xprev, tnf);
+	e->fields = terms_fields(t);
+	m->has_prev = has_prev;
+	if (m->xprev != NULL)
+		memcpy(m->xprev, xprev, sizeof(double) * tnf);
 	m->n_primed = get_u64(r);
 
 	/* The settings as they were (model_new may have derived some). */
 	m->o = so->mo;
-	m->o.theta0 = so->mask & OPT_THETA0 ? m->theta0 : NULL;
-	m->o.prior_sd = so->mask & OPT_PRIOR_SD ? m->prior_sd : NULL;
-	m->o.reference = so->mask & OPT_REFERENCE ? m->reference : NULL;
-	m->o.tol_abs = so->mask & OPT_TOL_ABS ? m->tol_abs : NULL;
-	m->o.tol_pct = so->mask & OPT_TOL_PCT ? m->tol_pct : NULL;
-	memcpy(m->theta0, so->arr, sizeof(double) * p);
-	memcpy(m->prior_sd, so->arr + p, sizeof(double) * p);
-	memcpy(m->reference, so->arr + 2 * p, sizeof(double) * p);
-	memcpy(m->tol_abs, so->arr + 3 * p, sizeof(double) * p);
-	memcpy(m->tol_pct, so->arr + 4 * p, sizeof(double) * p);
+	m->o.theta0 = m->theta0;
+	m->o.prior_sd = m->prior_sd;
+	m->o.reference = m->reference;
+	m->o.tol_abs = m->tol_abs;
+	m->o.tol_pct = m->tol_pct;
+	if (m->theta0 != NULL)
+		memcpy(m->theta0, so->arr, sizeof(double) * p);
+	if (m->prior_sd != NULL)
+		memcpy(m->prior_sd, so->arr + p, sizeof(double) * p);
+	if (m->reference != NULL)
+		memcpy(m->reference, so->arr + 2 * p, sizeof(double) * p);
+	if (m->tol_abs != NULL)
+		memcpy(m->tol_abs, so->arr + 3 * p, sizeof(double) * p);
+	if (m->tol_pct != NULL)
+		memcpy(m->tol_pct, so->arr + 4 * p, sizeof(double) * p);
 	memcpy(m->theta_pin, so->arr + 5 * p, sizeof(double) * p);
 
 	rl = m->rls;
@@ -1086,19 +1289,21 @@ decode_state(struct rd *r, struct reg_entry *e, const struct saved_opts *so,
 }
 
 /*
- * persist_model_decode: check the block at buf[0..len) and build a new
- * registry entry from it: its model with the saved settings and term
- * list, and every byte of state as saved. The caller owns *out
- * (registry_adopt or registry_entry_free). Returns 0; PERSIST_SHORT;
- * E_CORRUPT (bad framing, CRC, a value out of range, or settings or terms
- * that do not rebuild; a message in errbuf); E_NOMEM. *out is NULL on
- * failure.
+ * persist_model_decode_cached: check the block at buf[0..len) and build a
+ * new registry entry from it: its model with the saved settings and term
+ * list, and every byte of state as saved. With a cache c (may be NULL),
+ * a term list already met in c is not compiled again: the model shares
+ * the compiled form. The caller owns *out (registry_adopt or
+ * registry_entry_free). Returns 0; PERSIST_SHORT; E_CORRUPT (bad framing,
+ * CRC, a value out of range, or settings or terms that do not rebuild; a
+ * message in errbuf); E_NOMEM. *out is NULL on failure.
  */
 int
-persist_model_decode(const uint8_t *buf, size_t len, struct reg_entry **out,
-    char *errbuf, size_t errlen)
+persist_model_decode_cached(const uint8_t *buf, size_t len,
+    struct persist_cache *c, struct reg_entry **out, char *errbuf,
+    size_t errlen)
 {
-	struct saved_opts so;
+	struct saved_opts so;	/* ~21 KiB, on the stack: no allocation */
 	struct reg_entry *e;
 	struct rd r;
 	size_t bl;
@@ -1110,7 +1315,6 @@ persist_model_decode(const uint8_t *buf, size_t len, struct reg_entry **out,
 		    "cut short" : "block framing or checksum is wrong");
 		return rc;
 	}
-	memset(&so, 0, sizeof(so));
 	if ((e = calloc(1, sizeof(*e))) == NULL)
 		return E_NOMEM;
 	r.p = buf + PERSIST_BLOCK_HDR_LEN;
@@ -1120,8 +1324,7 @@ persist_model_decode(const uint8_t *buf, size_t len, struct reg_entry **out,
 	if (errbuf != NULL && errlen > 0)
 		errbuf[0] = '\0';
 	if ((rc = decode_head(&r, e, &so)) == 0)
-		rc = decode_state(&r, e, &so, errbuf, errlen);
-	free(so.arr);
+		rc = decode_state(&r, e, &so, c, errbuf, errlen);
 	if (rc != 0) {
 		if (rc == E_NOMEM)
 			err_printf(errbuf, errlen, "out of memory");
@@ -1133,6 +1336,18 @@ persist_model_decode(const uint8_t *buf, size_t len, struct reg_entry **out,
 	}
 	*out = e;
 	return 0;
+}
+
+/*
+ * persist_model_decode: persist_model_decode_cached without a cache (the
+ * term list is compiled for this model alone).
+ */
+int
+persist_model_decode(const uint8_t *buf, size_t len, struct reg_entry **out,
+    char *errbuf, size_t errlen)
+{
+	return persist_model_decode_cached(buf, len, NULL, out, errbuf,
+	    errlen);
 }
 
 /* ---- journal entries ---- */

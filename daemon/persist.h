@@ -106,6 +106,16 @@ int	 persist_model_check(const uint8_t *buf, size_t len, size_t *blocklen);
 /* persist_model_decode: a new entry (not in any registry) from a block. */
 int	 persist_model_decode(const uint8_t *buf, size_t len,
 	    struct reg_entry **out, char *errbuf, size_t errlen);
+/* Compiled term lists shared by the models of one restore. */
+struct persist_cache;
+/* persist_cache_new: an empty cache; NULL when out of memory. */
+struct persist_cache *persist_cache_new(void);
+/* persist_cache_free: drop the cache (decoded models keep their terms). */
+void	 persist_cache_free(struct persist_cache *c);
+/* persist_model_decode_cached: the same, sharing term lists through c. */
+int	 persist_model_decode_cached(const uint8_t *buf, size_t len,
+	    struct persist_cache *c, struct reg_entry **out, char *errbuf,
+	    size_t errlen);
 /* persist_model_peek_name: the name a (maybe damaged) block starts with. */
 int	 persist_model_peek_name(const uint8_t *buf, size_t len, char *name);
 /* persist_resync: next offset >= from holding a valid block or trailer. */

@@ -91,7 +91,6 @@ registry_entry_free(struct reg_entry *e)
 	if (e == NULL)
 		return;
 	model_free(e->m);
-	free(e->fields);
 	free(e->hist);
 	free(e);
 }
@@ -172,9 +171,12 @@ registry_adopt(struct registry *r, struct reg_entry *e)
 
 /*
  * registry_entry_new: build an entry named name from the config section cm
- * (a [model] or a [template]): compile its terms, create the model, copy
- * the field names, allocate the history ring. Returns NULL with a message
- * in errbuf on failure. The caller owns the entry until registry_adopt.
+ * (a [model] or a [template]): create the model with a clone of the
+ * section's compiled terms (shared with every model of the section, and
+ * kept alive by the models after a reload frees the config), point the
+ * entry's field names at the terms' copy, allocate the history ring.
+ * Returns NULL with a message in errbuf on failure. The caller owns the
+ * entry until registry_adopt.
  */
 struct reg_entry *
 registry_entry_new(const struct registry *r, const struct conf_model *cm,
@@ -183,11 +185,15 @@ registry_entry_new(const struct registry *r, const struct conf_model *cm,
 	struct reg_entry *e;
 	struct terms *t = NULL;
 	struct model_opts mo;
-	int p, f;
+	int p;
 
 	if (cm->nfields > PROTO_MAX_VALUES) {
 		err_printf(errbuf, errlen, "more than %d fields",
 		    PROTO_MAX_VALUES);
+		return NULL;
+	}
+	if (cm->terms == NULL) {
+		err_printf(errbuf, errlen, "section has no compiled terms");
 		return NULL;
 	}
 	if ((e = calloc(1, sizeof(*e))) == NULL)
@@ -196,14 +202,9 @@ registry_entry_new(const struct registry *r, const struct conf_model *cm,
 	snprintf(e->section, sizeof(e->section), "%s", cm->name);
 	e->from_template = cm->is_template;
 	e->nfields = cm->nfields;
-	if ((e->fields = calloc((size_t)cm->nfields + 1,
-	    sizeof(*e->fields))) == NULL)
+	if ((t = terms_clone(cm->terms, cm->scale_mode ==
+	    CONF_SCALE_AUTO)) == NULL)
 		goto nomem;
-	for (f = 0; f < cm->nfields; f++)
-		memcpy(e->fields[f], cm->fields[f], sizeof(e->fields[f]));
-	memcpy(e->fields[cm->nfields], cm->target, sizeof(e->fields[0]));
-	if (conf_model_terms(cm, &t, errbuf, errlen) != 0)
-		goto fail;
 	p = terms_p(t);
 	mo = cm->mo;
 	mo.p = p;
@@ -214,6 +215,7 @@ registry_entry_new(const struct registry *r, const struct conf_model *cm,
 	}
 	if (model_set_terms(e->m, t, cm->scale_mode == CONF_SCALE_AUTO) != 0)
 		goto nomem;
+	e->fields = terms_fields(e->m->terms);
 	if (r != NULL && r->conf != NULL) {
 		e->hist_cap = (uint32_t)r->conf->d.history;
 		e->hist_every = r->conf->d.history_every;
@@ -515,31 +517,15 @@ registry_apply(struct registry *r, const char *name, size_t len,
 	return ingest(r, e, x, res);
 }
 
-/* Same term list, fields, target and scaling: settings can be swapped in
- * place without touching the state. */
+/* Same term list, fields, target and intercept: settings can be swapped
+ * in place without touching the state. Compares with the section's
+ * compiled terms (no compile per model). */
 static int
 same_shape(const struct reg_entry *e, const struct conf_model *cm)
 {
-	struct terms *t;
-	char err[64];
-	int j, f, same = 1;
-
-	if (cm->nfields != e->nfields ||
-	    strcmp(cm->target, e->fields[e->nfields]) != 0 ||
-	    cm->mo.intercept != e->m->o.intercept)
-		return 0;
-	for (f = 0; f < e->nfields; f++)
-		if (strcmp(cm->fields[f], e->fields[f]) != 0)
-			return 0;
-	if (conf_model_terms(cm, &t, err, sizeof(err)) != 0)
-		return 0;
-	if (terms_p(t) != e->m->o.p)
-		same = 0;
-	for (j = 0; same && j < terms_p(t); j++)
-		if (strcmp(terms_text(t, j), terms_text(e->m->terms, j)) != 0)
-			same = 0;
-	terms_free(t);
-	return same;
+	return cm->terms != NULL && cm->nfields == e->nfields &&
+	    cm->mo.intercept == e->m->o.intercept &&
+	    terms_same(cm->terms, e->m->terms);
 }
 
 /* New settings from cm, applied from the next record on. */
@@ -547,7 +533,6 @@ static void
 apply_settings(struct reg_entry *e, const struct conf_model *cm)
 {
 	struct model *m = e->m;
-	int p = m->o.p;
 	double q = m->o.alarm.drift_q;
 
 	m->o.lambda = cm->mo.lambda;
@@ -560,18 +545,9 @@ apply_settings(struct reg_entry *e, const struct conf_model *cm)
 	m->o.alarm = cm->mo.alarm;
 	/* The drift threshold belongs to the pin, not the config. */
 	m->o.alarm.drift_q = m->pinned ? q : m->o.alarm.drift_q;
-	if (cm->tol_abs != NULL) {
-		memcpy(m->tol_abs, cm->tol_abs, sizeof(double) * (size_t)p);
-		m->o.tol_abs = m->tol_abs;
-	} else {
-		m->o.tol_abs = NULL;
-	}
-	if (cm->tol_pct != NULL) {
-		memcpy(m->tol_pct, cm->tol_pct, sizeof(double) * (size_t)p);
-		m->o.tol_pct = m->tol_pct;
-	} else {
-		m->o.tol_pct = NULL;
-	}
+	/* On E_NOMEM the model keeps its tolerances: the only setting a
+	 * reload can fail to apply for want of memory. */
+	(void)model_set_tol(m, cm->tol_abs, cm->tol_pct);
 }
 
 /*
@@ -657,7 +633,6 @@ registry_rebuild(struct registry *r, struct reg_entry *e, char *errbuf,
 		n->m->frozen = e->m->frozen;
 	/* Swap the contents so pointers to e stay valid. */
 	model_free(e->m);
-	free(e->fields);
 	free(e->hist);
 	n->n_rejected = e->n_rejected;
 	epoch = e->snap_epoch;

@@ -27,7 +27,8 @@ struct reg_entry {
 	int		 stale;		/* section's shape changed: .reset */
 	struct model	*m;
 	int		 nfields;	/* declared fields */
-	char		(*fields)[FIELD_NAME_MAX + 1];	/* nfields + target */
+	const char	(*fields)[FIELD_NAME_MAX + 1];	/* nfields + target;
+					 * the model's terms own them */
 	uint64_t	 n_rejected;	/* lines for this model rejected */
 	uint64_t	 n_updates;	/* used records (for watch every=N) */
 	/* History ring: hist_cap snapshots of 3 + p doubles each:

@@ -471,7 +471,8 @@ block_name(const uint8_t *b, size_t len, char *buf, size_t blen)
 /* Read models.ckpt into the registry. Fatal only for a newer format, an
  * unreadable file or no memory; damage is reported and set aside. */
 static int
-load_ckpt(struct rctx *rc, char *errbuf, size_t errlen)
+load_blocks(struct rctx *rc, struct persist_cache *pc, char *errbuf,
+    size_t errlen)
 {
 	struct persist_ckpt_hdr h;
 	struct reg_entry *e;
@@ -537,7 +538,8 @@ load_ckpt(struct rctx *rc, char *errbuf, size_t errlen)
 		r = persist_model_check(b, left, &bl);
 		if (r == 0) {
 			nblocks++;
-			r = persist_model_decode(b, bl, &e, err, sizeof(err));
+			r = persist_model_decode_cached(b, bl, pc, &e, err,
+			    sizeof(err));
 			if (r == E_NOMEM) {
 				unmap_file(&mf);
 				err_printf(errbuf, errlen, "out of memory "
@@ -600,6 +602,24 @@ load_ckpt(struct rctx *rc, char *errbuf, size_t errlen)
 		aside(rc, path);
 	}
 	return 0;
+}
+
+/* Restore the checkpoint's models; the models of one term list share its
+ * compiled form, compiled once (persist_cache). */
+static int
+load_ckpt(struct rctx *rc, char *errbuf, size_t errlen)
+{
+	struct persist_cache *pc;
+	int r;
+
+	if ((pc = persist_cache_new()) == NULL) {
+		err_printf(errbuf, errlen, "out of memory restoring %s",
+		    CKPT_NAME);
+		return E_NOMEM;
+	}
+	r = load_blocks(rc, pc, errbuf, errlen);
+	persist_cache_free(pc);
+	return r;
 }
 
 static int

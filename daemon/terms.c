@@ -3,8 +3,9 @@
  * terms: parse a model's term list, evaluate regressors from centred and
  * scaled fields, and map coefficients and covariances back to the user's
  * original terms. Pure: no I/O (not even stdio formatting), no globals, no
- * logging, no libuv. Allocation happens in terms_parse only; evaluation and
- * the back-mapping use storage owned by the term set.
+ * logging, no libuv. Allocation happens in terms_parse and terms_clone only;
+ * evaluation and the back-mapping use storage owned by the term set's
+ * compiled form, which clones share.
  */
 #include <assert.h>
 #include <math.h>
@@ -21,37 +22,63 @@
  * stored as its exponent row over the 2 nfields variables. Increasing v is
  * the canonical factor order: plain fields in declaration order, then prev
  * fields in declaration order.
+ *
+ * A term set is two objects. The compiled form (struct terms_form) depends
+ * only on the fields, the target, the intercept and the term list; it is
+ * immutable once compiled and shared, with a reference count, by every
+ * term set cloned from it (terms_clone), so that many models of one
+ * configuration section hold one copy. The term set itself (struct terms)
+ * holds only what differs per model: the scaling constants.
  */
-struct terms {
+struct terms_form {
+	unsigned	 refs;		/* term sets using this form */
 	int		 nfields;
 	int		 nvars;		/* 2 nfields */
 	int		 target;	/* field index, or -1 */
 	int		 intercept;	/* 1: coefficient 0 is 1 */
 	int		 p;		/* coefficients */
 	int		 uses_prev;
-	int		 scaling_set;
 	unsigned char	*exps;		/* p x nvars exponent rows */
 	int		*fac_off;	/* p + 1: term j has factors */
 	int		*fac_var;	/*   fac_off[j] .. fac_off[j+1]-1 */
 	int		*fac_exp;
 	char		**text;		/* p display texts */
 	char		*textbuf;
+	char		*list;		/* "t1, t2, ..." without intercept */
+	size_t		 listlen;
+	char		(*names)[FIELD_NAME_MAX + 1];	/* nfields */
 	unsigned char	*used;		/* nfields: in some term */
 	unsigned char	*centrable;	/* nfields: closure holds */
-	double		*centre;	/* nfields: c_f */
-	double		*scale;		/* nfields: s_f */
-	/* M (phi_s = M phi_o) as a list of nonzero entries, row-major. */
+	/*
+	 * M (phi_s = M phi_o) as the list of its possible nonzero entries,
+	 * row-major: entry n is row m_row[n], column m_col[n], and its value
+	 * is the product over the factors q of row m_row[n] of the binomial
+	 * expansion's term for power m_k[m_koff[n] + q] (see map_values).
+	 * The values depend on a term set's constants and are computed when
+	 * needed; entries that come out 0 are skipped.
+	 */
 	int		 nnz;
-	int		 nnz_cap;
 	int		*m_row;
 	int		*m_col;
-	double		*m_val;
+	int		*m_koff;
+	int		*m_k;
 	int		*col_off;	/* p + 1; column i's entries: */
 	int		*col_idx;	/* col_idx[col_off[i]..] */
-	/* Scratch, owned here so that the hot paths do not allocate. */
+	/* Scratch, owned here so that the hot paths do not allocate (not
+	 * for concurrent use: the daemon uses term sets from one thread). */
 	unsigned char	*rowbuf;	/* nvars */
 	int		*kbuf;		/* max(nvars, p) */
 	double		*work;		/* max(p, 2 nfields) */
+	double		*m_val;		/* nnz */
+};
+
+struct terms {
+	struct terms_form *fm;		/* shared, reference counted */
+	int		 scaling_set;
+	/* nfields each, in the same allocation as the struct; NULL when
+	 * the set has no room for constants (identity for good). */
+	double		*centre;	/* c_f */
+	double		*scale;		/* s_f */
 };
 
 /* A bounded, always NUL-terminated message writer (no stdio here). */
@@ -612,13 +639,13 @@ check_fields(const char *const *fields, int nfields, int target,
 /* ---- structure: closure rule and the map M ---- */
 
 static int
-row_find(const struct terms *t, const unsigned char *row)
+row_find(const struct terms_form *fm, const unsigned char *row)
 {
 	int i;
 
-	for (i = 0; i < t->p; i++)
-		if (memcmp(t->exps + (size_t)i * (size_t)t->nvars, row,
-		    (size_t)t->nvars) == 0)
+	for (i = 0; i < fm->p; i++)
+		if (memcmp(fm->exps + (size_t)i * (size_t)fm->nvars, row,
+		    (size_t)fm->nvars) == 0)
 			return i;
 	return -1;
 }
@@ -631,21 +658,21 @@ row_find(const struct terms *t, const unsigned char *row)
  * in original terms. Otherwise f is only scaled.
  */
 static int
-closed_in(struct terms *t, int f)
+closed_in(struct terms_form *fm, int f)
 {
 	int j, k, l, v;
 
-	if (!t->intercept || !t->used[f])
+	if (!fm->intercept || !fm->used[f])
 		return 0;
-	for (j = 0; j < t->p; j++)
+	for (j = 0; j < fm->p; j++)
 		for (k = 0; k < 2; k++) {
-			v = f + k * t->nfields;
-			for (l = 0; l < t->exps[(size_t)j * (size_t)t->nvars +
+			v = f + k * fm->nfields;
+			for (l = 0; l < fm->exps[(size_t)j * (size_t)fm->nvars +
 			    (size_t)v]; l++) {
-				memcpy(t->rowbuf, t->exps + (size_t)j *
-				    (size_t)t->nvars, (size_t)t->nvars);
-				t->rowbuf[v] = (unsigned char)l;
-				if (row_find(t, t->rowbuf) < 0)
+				memcpy(fm->rowbuf, fm->exps + (size_t)j *
+				    (size_t)fm->nvars, (size_t)fm->nvars);
+				fm->rowbuf[v] = (unsigned char)l;
+				if (row_find(fm, fm->rowbuf) < 0)
 					return 0;
 			}
 		}
@@ -653,9 +680,9 @@ closed_in(struct terms *t, int f)
 }
 
 static int
-field_of(const struct terms *t, int v)
+field_of(const struct terms_form *fm, int v)
 {
-	return v < t->nfields ? v : v - t->nfields;
+	return v < fm->nfields ? v : v - fm->nfields;
 }
 
 static double
@@ -681,77 +708,148 @@ ipow(double u, int e)
 }
 
 /*
- * Fill the entries of M from the constants in force. Row j of M expands
+ * The possible nonzero entries of M, from the structure alone. Row j of M
+ * expands
  * phi_s[j] = prod_v ((x_v - c_f)/s_f)^e_v
  *          = prod_v sum_{k=0..e_v} C(e_v,k) (-c_f/s_f)^(e_v-k) s_f^-k x_v^k,
  * (binomial theorem); each multi-index k is a term of the set by the
- * closure rule. Uncentred fields contribute only k = e_v. Returns E_NUMERIC
- * if an entry is not finite.
+ * closure rule. Uncentred fields contribute only k = e_v. The multi-indices
+ * of a row are enumerated as an odometer over its centred factors, lowest
+ * factor first. fm->nnz must hold the count; fills m_row, m_col, m_koff,
+ * m_k and the column index.
  */
-static int
-compute_map(struct terms *t)
+static void
+build_map(struct terms_form *fm)
 {
-	int j, q, nq, i, v, e, f, k, *fv, *fe;
-	double val, c, s;
+	int j, q, nq, i, n, kq, *fv, *fe;
 
-	t->nnz = 0;
-	for (j = 0; j < t->p; j++) {
-		fv = t->fac_var + t->fac_off[j];
-		fe = t->fac_exp + t->fac_off[j];
-		nq = t->fac_off[j + 1] - t->fac_off[j];
+	for (j = 0, n = 0, kq = 0; j < fm->p; j++) {
+		fv = fm->fac_var + fm->fac_off[j];
+		fe = fm->fac_exp + fm->fac_off[j];
+		nq = fm->fac_off[j + 1] - fm->fac_off[j];
 		for (q = 0; q < nq; q++)
-			t->kbuf[q] = t->centrable[field_of(t, fv[q])] ?
+			fm->kbuf[q] = fm->centrable[field_of(fm, fv[q])] ?
 			    0 : fe[q];
 		for (;;) {
-			val = 1.0;
-			memset(t->rowbuf, 0, (size_t)t->nvars);
+			memset(fm->rowbuf, 0, (size_t)fm->nvars);
+			for (q = 0; q < nq; q++)
+				fm->rowbuf[fv[q]] = (unsigned char)fm->kbuf[q];
+			i = row_find(fm, fm->rowbuf);
+			assert(i >= 0 && n < fm->nnz);
+			fm->m_row[n] = j;
+			fm->m_col[n] = i;
+			fm->m_koff[n] = kq;
+			for (q = 0; q < nq; q++)
+				fm->m_k[kq++] = fm->kbuf[q];
+			n++;
 			for (q = 0; q < nq; q++) {
-				v = fv[q];
-				e = fe[q];
-				k = t->kbuf[q];
-				f = field_of(t, v);
-				c = t->centre[f];
-				s = t->scale[f];
-				val *= binom(e, k) * ipow(-c / s, e - k) /
-				    ipow(s, k);
-				t->rowbuf[v] = (unsigned char)k;
-			}
-			if (!isfinite(val))
-				return E_NUMERIC;
-			i = row_find(t, t->rowbuf);
-			assert(i >= 0);
-			if (val != 0.0) {
-				assert(t->nnz < t->nnz_cap);
-				t->m_row[t->nnz] = j;
-				t->m_col[t->nnz] = i;
-				t->m_val[t->nnz] = val;
-				t->nnz++;
-			}
-			/* Next multi-index (odometer over centred factors). */
-			for (q = 0; q < nq; q++) {
-				if (t->centrable[field_of(t, fv[q])] &&
-				    t->kbuf[q] < fe[q]) {
-					t->kbuf[q]++;
+				if (fm->centrable[field_of(fm, fv[q])] &&
+				    fm->kbuf[q] < fe[q]) {
+					fm->kbuf[q]++;
 					break;
 				}
-				t->kbuf[q] = t->centrable[field_of(t, fv[q])] ?
-				    0 : fe[q];
+				fm->kbuf[q] = fm->centrable[field_of(fm,
+				    fv[q])] ? 0 : fe[q];
 			}
 			if (q == nq)
 				break;
 		}
 	}
+	assert(n == fm->nnz);
 	/* Column index (counting sort) for the covariance transform. */
-	memset(t->col_off, 0, (size_t)(t->p + 1) * sizeof(int));
-	for (i = 0; i < t->nnz; i++)
-		t->col_off[t->m_col[i] + 1]++;
-	for (i = 0; i < t->p; i++)
-		t->col_off[i + 1] += t->col_off[i];
-	for (i = 0; i < t->p; i++)
-		t->kbuf[i] = t->col_off[i];	/* next free slot */
-	for (i = 0; i < t->nnz; i++)
-		t->col_idx[t->kbuf[t->m_col[i]]++] = i;
+	memset(fm->col_off, 0, (size_t)(fm->p + 1) * sizeof(int));
+	for (i = 0; i < fm->nnz; i++)
+		fm->col_off[fm->m_col[i] + 1]++;
+	for (i = 0; i < fm->p; i++)
+		fm->col_off[i + 1] += fm->col_off[i];
+	for (i = 0; i < fm->p; i++)
+		fm->kbuf[i] = fm->col_off[i];	/* next free slot */
+	for (i = 0; i < fm->nnz; i++)
+		fm->col_idx[fm->kbuf[fm->m_col[i]]++] = i;
+}
+
+/*
+ * The values of M's entries into val[0..nnz) for the constants centre[]
+ * and scale[] (NULL for both: identity, c = 0 and s = 1). Returns E_NUMERIC
+ * if an entry is not finite.
+ */
+static int
+map_values(const struct terms_form *fm, const double *centre,
+    const double *scale, double *val)
+{
+	const int *fv, *fe, *kk;
+	double v, c, s;
+	int n, q, nq, j, f, e, k;
+
+	for (n = 0; n < fm->nnz; n++) {
+		j = fm->m_row[n];
+		fv = fm->fac_var + fm->fac_off[j];
+		fe = fm->fac_exp + fm->fac_off[j];
+		nq = fm->fac_off[j + 1] - fm->fac_off[j];
+		kk = fm->m_k + fm->m_koff[n];
+		v = 1.0;
+		for (q = 0; q < nq; q++) {
+			e = fe[q];
+			k = kk[q];
+			f = field_of(fm, fv[q]);
+			c = centre != NULL ? centre[f] : 0.0;
+			s = scale != NULL ? scale[f] : 1.0;
+			v *= binom(e, k) * ipow(-c / s, e - k) / ipow(s, k);
+		}
+		if (!isfinite(v))
+			return E_NUMERIC;
+		val[n] = v;
+	}
 	return 0;
+}
+
+static void
+form_free(struct terms_form *fm)
+{
+	if (fm == NULL)
+		return;
+	free(fm->exps);
+	free(fm->fac_off);
+	free(fm->fac_var);
+	free(fm->fac_exp);
+	free(fm->text);
+	free(fm->textbuf);
+	free(fm->list);
+	free(fm->names);
+	free(fm->used);
+	free(fm->centrable);
+	free(fm->m_row);
+	free(fm->m_col);
+	free(fm->m_koff);
+	free(fm->m_k);
+	free(fm->col_off);
+	free(fm->col_idx);
+	free(fm->rowbuf);
+	free(fm->kbuf);
+	free(fm->work);
+	free(fm->m_val);
+	free(fm);
+}
+
+/* A term set over fm (one more reference), identity constants not yet
+ * fixed; room: allocate space for constants. NULL when out of memory. */
+static struct terms *
+set_new(struct terms_form *fm, int room)
+{
+	struct terms *t;
+	size_t nf = room ? (size_t)fm->nfields : 0;
+
+	if ((t = calloc(1, sizeof(*t) + 2 * nf * sizeof(double))) == NULL)
+		return NULL;
+	t->fm = fm;
+	fm->refs++;
+	if (room) {
+		t->centre = (double *)(t + 1);
+		t->scale = t->centre + nf;
+		for (nf = 0; nf < (size_t)fm->nfields; nf++)
+			t->scale[nf] = 1.0;
+	}
+	return t;
 }
 
 /* ---- public API ---- */
@@ -775,10 +873,10 @@ terms_parse(const char *text, const char *const *fields, int nfields,
     size_t errlen)
 {
 	struct parser ps;
-	struct terms *t = NULL;
+	struct terms_form *fm = NULL;
 	struct msg tm;
 	unsigned char *rows = NULL, *row;
-	size_t ncomma, maxterms, i, len, nv;
+	size_t ncomma, maxterms, i, len, nv, nk;
 	int rc, nterms, j, k, v, q, f, prod;
 
 	*out = NULL;
@@ -843,91 +941,104 @@ terms_parse(const char *text, const char *const *fields, int nfields,
 	}
 
 	rc = E_NOMEM;
-	if ((t = calloc(1, sizeof(*t))) == NULL)
+	if ((fm = calloc(1, sizeof(*fm))) == NULL)
 		goto fail;
-	t->nfields = nfields;
-	t->nvars = (int)nv;
-	t->target = target;
-	t->intercept = intercept;
-	t->p = intercept + nterms;
-	t->exps = rows;
+	fm->nfields = nfields;
+	fm->nvars = (int)nv;
+	fm->target = target;
+	fm->intercept = intercept;
+	fm->p = intercept + nterms;
+	fm->exps = rows;
 	rows = NULL;
 
 	/* Factor lists, in canonical (increasing variable) order. */
-	if ((t->fac_off = calloc((size_t)t->p + 1, sizeof(int))) == NULL)
+	if ((fm->fac_off = calloc((size_t)fm->p + 1, sizeof(int))) == NULL)
 		goto fail;
-	for (j = 0, q = 0; j < t->p; j++)
-		for (v = 0; v < t->nvars; v++)
-			q += t->exps[(size_t)j * nv + (size_t)v] != 0;
-	if ((t->fac_var = calloc((size_t)q + 1, sizeof(int))) == NULL ||
-	    (t->fac_exp = calloc((size_t)q + 1, sizeof(int))) == NULL ||
-	    (t->used = calloc((size_t)nfields, 1)) == NULL ||
-	    (t->centrable = calloc((size_t)nfields, 1)) == NULL ||
-	    (t->centre = calloc((size_t)nfields, sizeof(double))) == NULL ||
-	    (t->scale = calloc((size_t)nfields, sizeof(double))) == NULL ||
-	    (t->rowbuf = calloc(nv, 1)) == NULL ||
-	    (t->kbuf = calloc(nv > (size_t)t->p ? nv : (size_t)t->p,
+	for (j = 0, q = 0; j < fm->p; j++)
+		for (v = 0; v < fm->nvars; v++)
+			q += fm->exps[(size_t)j * nv + (size_t)v] != 0;
+	if ((fm->fac_var = calloc((size_t)q + 1, sizeof(int))) == NULL ||
+	    (fm->fac_exp = calloc((size_t)q + 1, sizeof(int))) == NULL ||
+	    (fm->names = calloc((size_t)nfields,
+	    sizeof(*fm->names))) == NULL ||
+	    (fm->used = calloc((size_t)nfields, 1)) == NULL ||
+	    (fm->centrable = calloc((size_t)nfields, 1)) == NULL ||
+	    (fm->rowbuf = calloc(nv, 1)) == NULL ||
+	    (fm->kbuf = calloc(nv > (size_t)fm->p ? nv : (size_t)fm->p,
 	    sizeof(int))) == NULL ||
-	    (t->work = calloc(nv > (size_t)t->p ? nv : (size_t)t->p,
+	    (fm->work = calloc(nv > (size_t)fm->p ? nv : (size_t)fm->p,
 	    sizeof(double))) == NULL ||
-	    (t->text = calloc((size_t)t->p, sizeof(char *))) == NULL ||
-	    (t->col_off = calloc((size_t)t->p + 1, sizeof(int))) == NULL)
+	    (fm->text = calloc((size_t)fm->p, sizeof(char *))) == NULL ||
+	    (fm->col_off = calloc((size_t)fm->p + 1, sizeof(int))) == NULL)
 		goto fail;
-	for (j = 0, q = 0; j < t->p; j++) {
-		t->fac_off[j] = q;
-		for (v = 0; v < t->nvars; v++) {
-			k = t->exps[(size_t)j * nv + (size_t)v];
+	for (f = 0; f < nfields; f++)
+		memcpy(fm->names[f], fields[f], strlen(fields[f]) + 1);
+	for (j = 0, q = 0; j < fm->p; j++) {
+		fm->fac_off[j] = q;
+		for (v = 0; v < fm->nvars; v++) {
+			k = fm->exps[(size_t)j * nv + (size_t)v];
 			if (k == 0)
 				continue;
-			t->fac_var[q] = v;
-			t->fac_exp[q] = k;
+			fm->fac_var[q] = v;
+			fm->fac_exp[q] = k;
 			q++;
-			t->used[field_of(t, v)] = 1;
+			fm->used[field_of(fm, v)] = 1;
 			if (v >= nfields)
-				t->uses_prev = 1;
+				fm->uses_prev = 1;
 		}
 	}
-	t->fac_off[t->p] = q;
+	fm->fac_off[fm->p] = q;
 
-	/* Display texts in one buffer. */
-	for (j = 0, len = 0; j < t->p; j++)
-		len += term_text_len(t->exps + (size_t)j * nv, nfields,
+	/* Display texts in one buffer, and the list without the intercept
+	 * ("t1, t2, ..."), which terms_parse reads back as the same set. */
+	for (j = 0, len = 0; j < fm->p; j++)
+		len += term_text_len(fm->exps + (size_t)j * nv, nfields,
 		    fields) + 1;
-	if ((t->textbuf = malloc(len)) == NULL)
+	if ((fm->textbuf = malloc(len)) == NULL ||
+	    (fm->list = malloc(len + 2 * (size_t)fm->p)) == NULL)
 		goto fail;
-	for (j = 0, i = 0; j < t->p; j++) {
-		t->text[j] = t->textbuf + i;
-		k = (int)term_text_len(t->exps + (size_t)j * nv, nfields,
+	for (j = 0, i = 0; j < fm->p; j++) {
+		fm->text[j] = fm->textbuf + i;
+		k = (int)term_text_len(fm->exps + (size_t)j * nv, nfields,
 		    fields) + 1;
-		msg_init(&tm, t->textbuf + i, (size_t)k);
-		emit_term(&tm, t->exps + (size_t)j * nv, nfields, fields);
+		msg_init(&tm, fm->textbuf + i, (size_t)k);
+		emit_term(&tm, fm->exps + (size_t)j * nv, nfields, fields);
 		i += (size_t)k;
 	}
+	msg_init(&tm, fm->list, len + 2 * (size_t)fm->p);
+	for (j = intercept; j < fm->p; j++) {
+		if (j > intercept)
+			msg_s(&tm, ", ");
+		msg_s(&tm, fm->text[j]);
+	}
+	fm->listlen = strlen(fm->list);
 
-	/* Closure rule, then room for M's entries (at most p per row). */
-	for (f = 0; f < nfields; f++) {
-		t->centrable[f] = (unsigned char)closed_in(t, f);
-		t->scale[f] = 1.0;
+	/* Closure rule, then M's possible entries (at most p per row). */
+	for (f = 0; f < nfields; f++)
+		fm->centrable[f] = (unsigned char)closed_in(fm, f);
+	for (j = 0, fm->nnz = 0, nk = 0; j < fm->p; j++) {
+		for (q = fm->fac_off[j], prod = 1; q < fm->fac_off[j + 1]; q++)
+			if (fm->centrable[field_of(fm, fm->fac_var[q])])
+				prod *= fm->fac_exp[q] + 1;
+		fm->nnz += prod;
+		nk += (size_t)prod * (size_t)(fm->fac_off[j + 1] -
+		    fm->fac_off[j]);
 	}
-	for (j = 0, t->nnz_cap = 0; j < t->p; j++) {
-		for (q = t->fac_off[j], prod = 1; q < t->fac_off[j + 1]; q++)
-			if (t->centrable[field_of(t, t->fac_var[q])])
-				prod *= t->fac_exp[q] + 1;
-		t->nnz_cap += prod;
-	}
-	if ((t->m_row = calloc((size_t)t->nnz_cap, sizeof(int))) == NULL ||
-	    (t->m_col = calloc((size_t)t->nnz_cap, sizeof(int))) == NULL ||
-	    (t->m_val = calloc((size_t)t->nnz_cap, sizeof(double))) == NULL ||
-	    (t->col_idx = calloc((size_t)t->nnz_cap, sizeof(int))) == NULL)
+	if ((fm->m_row = calloc((size_t)fm->nnz, sizeof(int))) == NULL ||
+	    (fm->m_col = calloc((size_t)fm->nnz, sizeof(int))) == NULL ||
+	    (fm->m_koff = calloc((size_t)fm->nnz, sizeof(int))) == NULL ||
+	    (fm->m_k = calloc(nk + 1, sizeof(int))) == NULL ||
+	    (fm->m_val = calloc((size_t)fm->nnz, sizeof(double))) == NULL ||
+	    (fm->col_idx = calloc((size_t)fm->nnz, sizeof(int))) == NULL)
 		goto fail;
-	rc = compute_map(t);
-	assert(rc == 0);	/* identity scaling is always finite */
-	*out = t;
+	build_map(fm);
+	if ((*out = set_new(fm, 1)) == NULL)
+		goto fail;
 	return 0;
 
 fail:
 	free(rows);
-	terms_free(t);
+	form_free(fm);
 	if (rc == E_NOMEM) {
 		msg_init(&ps.m, errbuf, errlen);
 		msg_s(&ps.m, "out of memory");
@@ -935,72 +1046,140 @@ fail:
 	return rc;
 }
 
-/* terms_free: release t and everything it owns. NULL is a no-op. */
+/*
+ * terms_clone: a new term set sharing t's compiled form (not copied: the
+ * form is reference counted and freed with the last set using it) and
+ * with a copy of t's scaling constants when they are set. room = 0 gives a
+ * set without storage for constants when t has none set: its constants
+ * are the identity for good (terms_set_scaling and terms_scaling_auto
+ * return E_STATE); room = 1 lets them be fixed later. The caller owns the
+ * set (terms_free). NULL when out of memory. Costs one allocation.
+ */
+struct terms *
+terms_clone(const struct terms *t, int room)
+{
+	struct terms *n;
+	int f;
+
+	if ((n = set_new(t->fm, room || t->scaling_set)) == NULL)
+		return NULL;
+	if (t->scaling_set) {
+		for (f = 0; f < t->fm->nfields; f++) {
+			n->centre[f] = t->centre[f];
+			n->scale[f] = t->scale[f];
+		}
+		n->scaling_set = 1;
+	}
+	return n;
+}
+
+/* terms_free: release t, and its compiled form when no other term set
+ * uses it. NULL is a no-op. */
 void
 terms_free(struct terms *t)
 {
 	if (t == NULL)
 		return;
-	free(t->exps);
-	free(t->fac_off);
-	free(t->fac_var);
-	free(t->fac_exp);
-	free(t->text);
-	free(t->textbuf);
-	free(t->used);
-	free(t->centrable);
-	free(t->centre);
-	free(t->scale);
-	free(t->m_row);
-	free(t->m_col);
-	free(t->m_val);
-	free(t->col_off);
-	free(t->col_idx);
-	free(t->rowbuf);
-	free(t->kbuf);
-	free(t->work);
+	assert(t->fm->refs > 0);
+	if (--t->fm->refs == 0)
+		form_free(t->fm);
 	free(t);
+}
+
+/*
+ * terms_same: 1 when a and b have the same compiled form: the same field
+ * names in the same order, target, intercept and canonical terms (a set
+ * and its clones always do); 0 otherwise. Scaling constants are not
+ * compared.
+ */
+int
+terms_same(const struct terms *a, const struct terms *b)
+{
+	const struct terms_form *x = a->fm, *y = b->fm;
+	int f;
+
+	if (x == y)
+		return 1;
+	if (x->nfields != y->nfields || x->target != y->target ||
+	    x->intercept != y->intercept || x->p != y->p ||
+	    x->listlen != y->listlen || memcmp(x->list, y->list,
+	    x->listlen) != 0)
+		return 0;
+	for (f = 0; f < x->nfields; f++)
+		if (strcmp(x->names[f], y->names[f]) != 0)
+			return 0;
+	return 1;
+}
+
+/* terms_shares: 1 when a and b use one compiled form in memory. */
+int
+terms_shares(const struct terms *a, const struct terms *b)
+{
+	return a->fm == b->fm;
 }
 
 /* terms_p: number of coefficients p (intercept included), 1..RLS_MAX_P. */
 int
 terms_p(const struct terms *t)
 {
-	return t->p;
+	return t->fm->p;
 }
 
 /*
  * terms_text: display text of coefficient j: "intercept" for the constant,
- * else the canonical term text. Owned by t, valid until terms_free. NULL
- * when j is out of range.
+ * else the canonical term text. Owned by t's compiled form, valid until
+ * the last set using it is freed. NULL when j is out of range.
  */
 const char *
 terms_text(const struct terms *t, int j)
 {
-	if (j < 0 || j >= t->p)
+	if (j < 0 || j >= t->fm->p)
 		return NULL;
-	return t->text[j];
+	return t->fm->text[j];
+}
+
+/*
+ * terms_list: the canonical term list without the intercept, "t1, t2, ..."
+ * (terms_parse gives the same set back from it), with its length in *len
+ * (may be NULL). Owned as terms_text.
+ */
+const char *
+terms_list(const struct terms *t, size_t *len)
+{
+	if (len != NULL)
+		*len = t->fm->listlen;
+	return t->fm->list;
+}
+
+/*
+ * terms_fields: the declared field names, nfields of them in declaration
+ * order, each NUL-terminated in FIELD_NAME_MAX + 1 bytes. Owned as
+ * terms_text.
+ */
+const char (*terms_fields(const struct terms *t))[FIELD_NAME_MAX + 1]
+{
+	return (const char (*)[FIELD_NAME_MAX + 1])t->fm->names;
 }
 
 /* terms_nfields: the number of declared fields. */
 int
 terms_nfields(const struct terms *t)
 {
-	return t->nfields;
+	return t->fm->nfields;
 }
 
 /* terms_has_intercept: 1 when coefficient 0 is the constant 1, else 0. */
 int
 terms_has_intercept(const struct terms *t)
 {
-	return t->intercept;
+	return t->fm->intercept;
 }
 
 /* terms_uses_prev: 1 when some term contains prev(), else 0. */
 int
 terms_uses_prev(const struct terms *t)
 {
-	return t->uses_prev;
+	return t->fm->uses_prev;
 }
 
 /* terms_field_used: 1 when field f appears in some term; 0 otherwise or
@@ -1008,9 +1187,9 @@ terms_uses_prev(const struct terms *t)
 int
 terms_field_used(const struct terms *t, int f)
 {
-	if (f < 0 || f >= t->nfields)
+	if (f < 0 || f >= t->fm->nfields)
 		return 0;
-	return t->used[f];
+	return t->fm->used[f];
 }
 
 /*
@@ -1022,45 +1201,40 @@ terms_field_used(const struct terms *t, int f)
 int
 terms_field_centrable(const struct terms *t, int f)
 {
-	if (f < 0 || f >= t->nfields)
+	if (f < 0 || f >= t->fm->nfields)
 		return 0;
-	return t->centrable[f];
+	return t->fm->centrable[f];
 }
 
 /*
  * terms_set_scaling: fix the centre c_f and scale s_f of every field
  * (arrays of terms_nfields(t)); regressors are then formed from
  * u_f = (x_f - c_f) / s_f. Once only: the constants are model state.
- * Returns 0; E_STATE if already set; E_ARG if a value is not finite, a
- * scale is not > 0, or centre[f] != 0 for a field that is not centrable;
- * E_NUMERIC if the map M would overflow. On failure t is unchanged.
+ * Returns 0; E_STATE if already set or t has no room for constants
+ * (terms_clone with room = 0); E_ARG if a value is not finite, a scale is
+ * not > 0, or centre[f] != 0 for a field that is not centrable; E_NUMERIC
+ * if the map M would overflow. On failure t is unchanged.
  */
 int
 terms_set_scaling(struct terms *t, const double *centre, const double *scale)
 {
-	int f, rc;
+	struct terms_form *fm = t->fm;
+	int f;
 
-	if (t->scaling_set)
+	if (t->scaling_set || t->centre == NULL)
 		return E_STATE;
-	for (f = 0; f < t->nfields; f++) {
+	for (f = 0; f < fm->nfields; f++) {
 		if (!isfinite(centre[f]) || !isfinite(scale[f]) ||
 		    !(scale[f] > 0.0))
 			return E_ARG;
-		if (centre[f] != 0.0 && !t->centrable[f])
+		if (centre[f] != 0.0 && !fm->centrable[f])
 			return E_ARG;
 	}
-	for (f = 0; f < t->nfields; f++) {
+	if (map_values(fm, centre, scale, fm->m_val) != 0)
+		return E_NUMERIC;
+	for (f = 0; f < fm->nfields; f++) {
 		t->centre[f] = centre[f];
 		t->scale[f] = scale[f];
-	}
-	if ((rc = compute_map(t)) != 0) {
-		for (f = 0; f < t->nfields; f++) {
-			t->centre[f] = 0.0;
-			t->scale[f] = 1.0;
-		}
-		rc = compute_map(t);
-		assert(rc == 0);
-		return E_NUMERIC;
 	}
 	t->scaling_set = 1;
 	return 0;
@@ -1087,33 +1261,35 @@ pow2_ceil(double m)
  * s = 2^k >= |lo|; s = 1 when that bound is 0. Unused fields get c = 0,
  * s = 1. Then |u| <= 1 on these rows, so none of them can overflow a
  * term, and powers of two keep the division exact. Returns 0; E_ARG if
- * n < 1; E_STATE if already set; E_NUMERIC if no row is usable or M would
- * overflow. On failure t is unchanged.
+ * n < 1; E_STATE if already set or there is no room for constants;
+ * E_NUMERIC if no row is usable or M would overflow. On failure t is
+ * unchanged.
  */
 int
 terms_scaling_auto(struct terms *t, const double *X, int n)
 {
-	double *c = t->work, *s = t->work + t->nfields, lo, hi, v, m;
+	struct terms_form *fm = t->fm;
+	double *c = fm->work, *s = fm->work + fm->nfields, lo, hi, v, m;
 	const double *row;
-	size_t nf = (size_t)t->nfields;
+	size_t nf = (size_t)fm->nfields;
 	int f, i, nuse, ok;
 
 	if (n < 1)
 		return E_ARG;
-	if (t->scaling_set)
+	if (t->scaling_set || t->centre == NULL)
 		return E_STATE;
-	for (f = 0; f < t->nfields; f++) {
+	for (f = 0; f < fm->nfields; f++) {
 		c[f] = 0.0;
 		s[f] = 1.0;
 	}
 	for (i = 0, nuse = 0; i < n; i++) {
 		row = X + (size_t)i * nf;
-		for (f = 0, ok = 1; f < t->nfields && ok; f++)
-			ok = !t->used[f] || isfinite(row[f]);
+		for (f = 0, ok = 1; f < fm->nfields && ok; f++)
+			ok = !fm->used[f] || isfinite(row[f]);
 		if (!ok)
 			continue;
-		for (f = 0; f < t->nfields; f++) {
-			if (!t->used[f])
+		for (f = 0; f < fm->nfields; f++) {
+			if (!fm->used[f])
 				continue;
 			/* Track the range in c (lo) and s (hi) for now. */
 			v = row[f];
@@ -1126,13 +1302,13 @@ terms_scaling_auto(struct terms *t, const double *X, int n)
 	}
 	if (nuse == 0)
 		return E_NUMERIC;
-	for (f = 0; f < t->nfields; f++) {
-		if (!t->used[f])
+	for (f = 0; f < fm->nfields; f++) {
+		if (!fm->used[f])
 			continue;
 		lo = c[f];
 		hi = s[f];
 		/* Halve before adding or subtracting: no overflow. */
-		if (t->centrable[f]) {
+		if (fm->centrable[f]) {
 			c[f] = hi > lo ? lo / 2 + hi / 2 : lo;
 			m = hi > lo ? hi / 2 - lo / 2 : fabs(lo);
 		} else {
@@ -1161,9 +1337,9 @@ terms_get_scaling(const struct terms *t, double *centre, double *scale)
 {
 	int f;
 
-	for (f = 0; f < t->nfields; f++) {
-		centre[f] = t->centre[f];
-		scale[f] = t->scale[f];
+	for (f = 0; f < t->fm->nfields; f++) {
+		centre[f] = t->centre != NULL ? t->centre[f] : 0.0;
+		scale[f] = t->scale != NULL ? t->scale[f] : 1.0;
 	}
 }
 
@@ -1171,21 +1347,24 @@ terms_get_scaling(const struct terms *t, double *centre, double *scale)
  * Product of term j's factors of one kind: plain fields (prev = 0) read
  * from x, or prev() fields (prev = 1) read from x as the previous record.
  * Powers by repeated multiplication: at most 8 roundings for a power 9.
+ * With c = NULL the raw values are used: the same numbers as the identity
+ * constants give, since (x - 0) / 1 is x exactly.
  */
 static double
-part(const struct terms *t, int j, const double *x, int prev, int scaled)
+part(const struct terms_form *fm, const double *c, const double *s, int j,
+    const double *x, int prev)
 {
 	double r = 1.0, u, pw;
 	int q, v, f, k;
 
-	for (q = t->fac_off[j]; q < t->fac_off[j + 1]; q++) {
-		v = t->fac_var[q];
-		if ((v >= t->nfields) != prev)
+	for (q = fm->fac_off[j]; q < fm->fac_off[j + 1]; q++) {
+		v = fm->fac_var[q];
+		if ((v >= fm->nfields) != prev)
 			continue;
-		f = field_of(t, v);
-		u = scaled ? (x[f] - t->centre[f]) / t->scale[f] : x[f];
+		f = field_of(fm, v);
+		u = c != NULL ? (x[f] - c[f]) / s[f] : x[f];
 		pw = u;
-		for (k = 1; k < t->fac_exp[q]; k++)
+		for (k = 1; k < fm->fac_exp[q]; k++)
 			pw *= u;
 		r *= pw;
 	}
@@ -1196,14 +1375,17 @@ static int
 eval(const struct terms *t, const double *x, const double *xprev,
     double *phi, int scaled)
 {
+	const struct terms_form *fm = t->fm;
+	const double *c = scaled && t->scaling_set ? t->centre : NULL;
+	const double *s = t->scale;
 	int j;
 
-	if (t->uses_prev && xprev == NULL)
+	if (fm->uses_prev && xprev == NULL)
 		return E_STATE;
-	for (j = 0; j < t->p; j++) {
-		phi[j] = part(t, j, x, 0, scaled);
-		if (t->uses_prev)
-			phi[j] *= part(t, j, xprev, 1, scaled);
+	for (j = 0; j < fm->p; j++) {
+		phi[j] = part(fm, c, s, j, x, 0);
+		if (fm->uses_prev)
+			phi[j] *= part(fm, c, s, j, xprev, 1);
 		if (!isfinite(phi[j]))
 			return E_NUMERIC;
 	}
@@ -1243,21 +1425,23 @@ int
 terms_ingest(const struct terms *t, const double *x, const double *xprev,
     double *phi)
 {
+	const struct terms_form *fm = t->fm;
+	const double *c = t->scaling_set ? t->centre : NULL, *s = t->scale;
 	int j, rc;
 
-	if (!t->uses_prev)
+	if (!fm->uses_prev)
 		return eval(t, x, xprev, phi, 1);
 	if (xprev == NULL) {
-		for (j = 0; j < t->p; j++)
-			if (!isfinite(part(t, j, x, 0, 1)) ||
-			    !isfinite(part(t, j, x, 1, 1)))
+		for (j = 0; j < fm->p; j++)
+			if (!isfinite(part(fm, c, s, j, x, 0)) ||
+			    !isfinite(part(fm, c, s, j, x, 1)))
 				return E_NUMERIC;
 		return E_STATE;
 	}
 	if ((rc = eval(t, x, xprev, phi, 1)) != 0)
 		return rc;
-	for (j = 0; j < t->p; j++)
-		if (!isfinite(part(t, j, x, 1, 1)))
+	for (j = 0; j < fm->p; j++)
+		if (!isfinite(part(fm, c, s, j, x, 1)))
 			return E_NUMERIC;
 	return 0;
 }
@@ -1274,21 +1458,38 @@ terms_eval_original(const struct terms *t, const double *x,
 	return eval(t, x, xprev, phi, 0);
 }
 
+/* M's entry values for t's constants into the form's scratch. They were
+ * checked finite when the constants were fixed. */
+static const double *
+cur_values(const struct terms *t)
+{
+	int rc;
+
+	rc = map_values(t->fm, t->centre, t->scale, t->fm->m_val);
+	assert(rc == 0);
+	(void)rc;
+	return t->fm->m_val;
+}
+
 /*
  * terms_map: write the p x p matrix M (row-major, M[j*p+i]) with
  * phi_scaled = M phi_original for the constants in force. M is the
  * identity until constants are set, and when nothing is centred it is
- * diagonal with entries prod s_f^-e.
+ * diagonal with entries prod s_f^-e. Uses scratch of t's compiled form
+ * (see terms_to_original).
  */
 void
 terms_map(const struct terms *t, double *M)
 {
+	const struct terms_form *fm = t->fm;
+	const double *val = cur_values(t);
 	int n;
 
-	memset(M, 0, (size_t)t->p * (size_t)t->p * sizeof(double));
-	for (n = 0; n < t->nnz; n++)
-		M[(size_t)t->m_row[n] * (size_t)t->p + (size_t)t->m_col[n]] =
-		    t->m_val[n];
+	memset(M, 0, (size_t)fm->p * (size_t)fm->p * sizeof(double));
+	for (n = 0; n < fm->nnz; n++)
+		if (val[n] != 0.0)
+			M[(size_t)fm->m_row[n] * (size_t)fm->p +
+			    (size_t)fm->m_col[n]] = val[n];
 }
 
 /*
@@ -1298,43 +1499,50 @@ terms_map(const struct terms *t, double *M)
  * cov_o = M' cov_s M. theta_s, theta_o have p entries; cov_s, cov_o are
  * p x p, symmetric; pass NULL for both to skip the covariance. Outputs must
  * not alias inputs. cov_o is returned exactly symmetric. Uses scratch owned
- * by t (so calls on one t must not run concurrently) and does not allocate.
- * Cost O(p * nnz(M)).
+ * by t's compiled form, which its clones share (so calls on term sets of
+ * one form must not run concurrently), and does not allocate. Cost
+ * O(p * nnz(M)), plus O(nnz(M)) to form M's values.
  */
 void
 terms_to_original(const struct terms *t, const double *theta_s,
     const double *cov_s, double *theta_o, double *cov_o)
 {
-	double *w = t->work, a;
-	size_t p = (size_t)t->p;
+	const struct terms_form *fm = t->fm;
+	const double *val = cur_values(t);
+	double *w = fm->work, a;
+	size_t p = (size_t)fm->p;
 	int i, k, n, e, j, l;
 
-	for (i = 0; i < t->p; i++)
+	for (i = 0; i < fm->p; i++)
 		theta_o[i] = 0.0;
-	for (n = 0; n < t->nnz; n++)
-		theta_o[t->m_col[n]] += t->m_val[n] * theta_s[t->m_row[n]];
+	for (n = 0; n < fm->nnz; n++)
+		if (val[n] != 0.0)
+			theta_o[fm->m_col[n]] += val[n] * theta_s[fm->m_row[n]];
 	if (cov_s == NULL || cov_o == NULL)
 		return;
-	for (k = 0; k < t->p; k++) {
+	for (k = 0; k < fm->p; k++) {
 		/* w = cov_s M[:,k], from the entries of column k. */
-		for (j = 0; j < t->p; j++)
+		for (j = 0; j < fm->p; j++)
 			w[j] = 0.0;
-		for (e = t->col_off[k]; e < t->col_off[k + 1]; e++) {
-			n = t->col_idx[e];
-			l = t->m_row[n];
-			for (j = 0; j < t->p; j++)
+		for (e = fm->col_off[k]; e < fm->col_off[k + 1]; e++) {
+			n = fm->col_idx[e];
+			if (val[n] == 0.0)
+				continue;
+			l = fm->m_row[n];
+			for (j = 0; j < fm->p; j++)
 				w[j] += cov_s[(size_t)j * p + (size_t)l] *
-				    t->m_val[n];
+				    val[n];
 		}
 		/* cov_o[:,k] = M' w */
-		for (i = 0; i < t->p; i++)
+		for (i = 0; i < fm->p; i++)
 			cov_o[(size_t)i * p + (size_t)k] = 0.0;
-		for (n = 0; n < t->nnz; n++)
-			cov_o[(size_t)t->m_col[n] * p + (size_t)k] +=
-			    t->m_val[n] * w[t->m_row[n]];
+		for (n = 0; n < fm->nnz; n++)
+			if (val[n] != 0.0)
+				cov_o[(size_t)fm->m_col[n] * p + (size_t)k] +=
+				    val[n] * w[fm->m_row[n]];
 	}
-	for (i = 0; i < t->p; i++)
-		for (k = i + 1; k < t->p; k++) {
+	for (i = 0; i < fm->p; i++)
+		for (k = i + 1; k < fm->p; k++) {
 			a = 0.5 * (cov_o[(size_t)i * p + (size_t)k] +
 			    cov_o[(size_t)k * p + (size_t)i]);
 			cov_o[(size_t)i * p + (size_t)k] = a;

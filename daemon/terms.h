@@ -13,11 +13,18 @@
 
 #include <stddef.h>
 
+#include "limits.h"
+
 #define TERMS_POWER_MAX	9	/* largest power of a field in a term */
 
 /*
- * A compiled term set. Owner: the caller of terms_parse (in the daemon, the
- * model), released with terms_free. Holds the scaling constants once set.
+ * A compiled term set. Owner: the caller of terms_parse or terms_clone (in
+ * the daemon, the model), released with terms_free. Holds the scaling
+ * constants once set. Its compiled form (terms, field names, the structure
+ * of the back-map) is immutable and shared by reference count between a
+ * set and its clones, so many models of one configuration section hold one
+ * copy; a clone stays valid after the set it came from is freed. Term sets
+ * are not thread-safe: sets sharing a form share its scratch space.
  */
 struct terms;
 
@@ -27,8 +34,14 @@ struct terms;
 int terms_parse(const char *text, const char *const *fields, int nfields,
     int target, int intercept, struct terms **out, char *errbuf,
     size_t errlen);
-/* terms_free: release t; NULL is a no-op. */
+/* terms_clone: a set sharing t's compiled form, with t's constants. */
+struct terms *terms_clone(const struct terms *t, int room);
+/* terms_free: release t (the form with its last set); NULL is a no-op. */
 void terms_free(struct terms *t);
+/* terms_same: 1 when a and b have equal compiled forms. */
+int terms_same(const struct terms *a, const struct terms *b);
+/* terms_shares: 1 when a and b use one compiled form in memory. */
+int terms_shares(const struct terms *a, const struct terms *b);
 
 /* Shape. */
 
@@ -36,6 +49,10 @@ void terms_free(struct terms *t);
 int terms_p(const struct terms *t);
 /* terms_text: display text of coefficient j ("intercept", "raw^2", ...). */
 const char *terms_text(const struct terms *t, int j);
+/* terms_list: canonical term list without the intercept, and its length. */
+const char *terms_list(const struct terms *t, size_t *len);
+/* terms_fields: the declared field names (nfields, shared, read-only). */
+const char (*terms_fields(const struct terms *t))[FIELD_NAME_MAX + 1];
 /* terms_nfields: number of declared fields (length of x, xprev, centre). */
 int terms_nfields(const struct terms *t);
 /* terms_has_intercept: 1 when coefficient 0 is the constant 1. */

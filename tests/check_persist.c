@@ -85,7 +85,10 @@ same_f64s(const double *a, const double *b, size_t n, const char *what)
 {
 	size_t i;
 
-	for (i = 0; i < n; i++)
+	/* An absent vector (NULL) matches only an absent one. */
+	ck_assert_msg((a == NULL) == (b == NULL), "%s: present in one only",
+	    what);
+	for (i = 0; a != NULL && i < n; i++)
 		ck_assert_msg(memcmp(&a[i], &b[i], sizeof(double)) == 0,
 		    "%s[%zu]: %.17g != %.17g", what, i, a[i], b[i]);
 }
@@ -146,11 +149,12 @@ same_entry(const struct reg_entry *a, const struct reg_entry *b)
 	ck_assert_int_eq(m->o.tol_pct == NULL, n->o.tol_pct == NULL);
 	ck_assert(n->o.theta0 == NULL || n->o.theta0 == n->theta0);
 	ck_assert(n->o.tol_pct == NULL || n->o.tol_pct == n->tol_pct);
-	same_f64s(m->theta0, n->theta0, p, "theta0");
-	same_f64s(m->prior_sd, n->prior_sd, p, "prior_sd");
-	same_f64s(m->reference, n->reference, p, "reference");
-	same_f64s(m->tol_abs, n->tol_abs, p, "tol_abs");
-	same_f64s(m->tol_pct, n->tol_pct, p, "tol_pct");
+	/* Vectors in force (a model stores only the configured ones). */
+	same_f64s(m->o.theta0, n->o.theta0, p, "theta0");
+	same_f64s(m->o.prior_sd, n->o.prior_sd, p, "prior_sd");
+	same_f64s(m->o.reference, n->o.reference, p, "reference");
+	same_f64s(m->o.tol_abs, n->o.tol_abs, p, "tol_abs");
+	same_f64s(m->o.tol_pct, n->o.tol_pct, p, "tol_pct");
 	same_f64s(m->theta_pin, n->theta_pin, p, "theta_pin");
 
 	/* Engine. */
@@ -521,6 +525,128 @@ START_TEST(test_persist_roundtrip_stale_orphan)
 	ck_assert(get(r, "lag_fit")->m->o.lambda == 0.5);
 	registry_free(r);
 	conf_free(c2);
+	conf_free(c);
+}
+END_TEST
+
+/* ---- sharing of compiled terms (issue 8, 2026-12) ---- */
+
+/* Two models of one section share one compiled term list and one copy of
+ * the field names; a model of another section does not. */
+START_TEST(test_persist_share_section)
+{
+	struct conf *c = parse("[daemon]\nhistory = 0\n"
+	    "[template a_*]\nfields = u v\ntarget = y\nterms = u, v, u*v\n"
+	    "[template b_*]\nfields = u v\ntarget = y\n");
+	struct registry *r = registry_new(c);
+	struct reg_entry *a1, *a2, *b1;
+
+	ck_assert_ptr_nonnull(r);
+	a1 = get(r, "a_1");
+	a2 = get(r, "a_2");
+	b1 = get(r, "b_1");
+	ck_assert(terms_shares(a1->m->terms, a2->m->terms));
+	ck_assert(terms_shares(a1->m->terms, c->models[0].terms));
+	ck_assert_ptr_eq(a1->fields, a2->fields);
+	ck_assert(!terms_shares(a1->m->terms, b1->m->terms));
+	ck_assert(a1->m->terms != a2->m->terms);	/* own constants */
+	ck_assert_str_eq(a2->fields[2], "y");
+	registry_free(r);
+	conf_free(c);
+}
+END_TEST
+
+/* A reload that changes a section's terms and frees the old config: the
+ * old models keep their (old) compiled terms and keep working; a reload
+ * with the same shape keeps the models and adds tolerances they were
+ * created without. */
+START_TEST(test_persist_share_reload)
+{
+	struct conf *c1 = parse("[daemon]\nhistory = 4\n"
+	    "[template a_*]\nfields = u v\ntarget = y\n");
+	struct conf *c2 = parse("[daemon]\nhistory = 4\n"
+	    "[template a_*]\nfields = u v\ntarget = y\nterms = u, v, u^2\n");
+	struct conf *c3;
+	struct registry *r = registry_new(c1);
+	struct reg_entry *a1, *a3;
+	struct model_report rep;
+	double x[3], th[4];
+	const char *names[4];
+	int kept, stale, orphan, i;
+
+	ck_assert_ptr_nonnull(r);
+	a1 = get(r, "a_1");
+	registry_set_conf(r, c2, &kept, &stale, &orphan);
+	ck_assert_int_eq(stale, 1);
+	conf_free(c1);
+	for (i = 0; i < 10; i++) {
+		x[0] = i;
+		x[1] = i % 3;
+		x[2] = 1 + 2 * x[0] - x[1];
+		ck_assert_int_eq(feed(r, "a_1", x, 3, 1.7e9 + i), 0);
+	}
+	registry_coef_names(a1, names);
+	ck_assert_str_eq(names[2], "v");
+	memset(&rep, 0, sizeof(rep));
+	rep.theta = th;
+	ck_assert_int_eq(model_report(a1->m, &rep), 0);
+	/* y = 1 + 2u - v exactly: the fit recovers it (closed form). */
+	ck_assert_double_eq_tol(th[1], 2.0, 1e-9);
+	a3 = get(r, "a_3");
+	ck_assert_int_eq(a3->m->o.p, 4);
+	ck_assert(!terms_shares(a1->m->terms, a3->m->terms));
+	ck_assert_str_eq(a1->fields[0], "u");
+
+	/* Same shape, new settings: kept, tolerance storage allocated. */
+	c3 = parse("[daemon]\nhistory = 4\n"
+	    "[template a_*]\nfields = u v\ntarget = y\nterms = u, v, u^2\n"
+	    "tolerance = - 0.5 - 0.25\n");
+	ck_assert_ptr_null(a3->m->o.tol_abs);
+	registry_set_conf(r, c3, &kept, &stale, &orphan);
+	ck_assert_int_eq(kept, 1);
+	ck_assert_int_eq(stale, 1);
+	ck_assert_ptr_nonnull(a3->m->o.tol_abs);
+	ck_assert(isnan(a3->m->o.tol_abs[0]));
+	ck_assert(a3->m->o.tol_abs[1] == 0.5);
+	ck_assert(a3->m->o.tol_abs[3] == 0.25);
+	registry_free(r);
+	conf_free(c2);
+	conf_free(c3);
+}
+END_TEST
+
+/* Restore through a cache: models of one term list share one compiled
+ * form (compiled once), each model is restored bit for bit, and the
+ * models outlive the cache. */
+START_TEST(test_persist_share_restore)
+{
+	static const char *names[] = { "t_fit", "t_pinned", "lag_fit",
+	    "lag_primed", "calib", "explicit" };
+	struct conf *c;
+	struct registry *r = every_state(&c);
+	struct persist_cache *pc;
+	struct reg_entry *d[6];
+	uint8_t *b;
+	size_t len, i;
+	char err[200];
+
+	ck_assert_ptr_nonnull(pc = persist_cache_new());
+	for (i = 0; i < 6; i++) {
+		b = encode(get(r, names[i]), &len);
+		ck_assert_int_eq(persist_model_decode_cached(b, len, pc, &d[i],
+		    err, sizeof(err)), 0);
+		free(b);
+	}
+	persist_cache_free(pc);
+	ck_assert(terms_shares(d[0]->m->terms, d[1]->m->terms));
+	ck_assert(terms_shares(d[2]->m->terms, d[3]->m->terms));
+	ck_assert(!terms_shares(d[0]->m->terms, d[2]->m->terms));
+	ck_assert(!terms_shares(d[4]->m->terms, d[5]->m->terms));
+	for (i = 0; i < 6; i++) {
+		same_entry(get(r, names[i]), d[i]);
+		registry_entry_free(d[i]);
+	}
+	registry_free(r);
 	conf_free(c);
 }
 END_TEST
@@ -1073,6 +1199,11 @@ persist_suite(void)
 	tc = tcase_create("roundtrip");
 	tcase_add_test(tc, test_persist_roundtrip_every_state);
 	tcase_add_test(tc, test_persist_roundtrip_stale_orphan);
+	suite_add_tcase(s, tc);
+	tc = tcase_create("sharing");
+	tcase_add_test(tc, test_persist_share_section);
+	tcase_add_test(tc, test_persist_share_reload);
+	tcase_add_test(tc, test_persist_share_restore);
 	suite_add_tcase(s, tc);
 	tc = tcase_create("corruption");
 	tcase_add_test(tc, test_persist_every_bit_flip_detected);

@@ -1153,6 +1153,47 @@ START_TEST(test_terms_pontius_lre)
 	nist_free(&ds);
 }
 END_TEST
+/* A clone shares the compiled form, copies the constants, outlives its
+ * source and evaluates to the same bits; without room its constants stay
+ * the identity (issue 8, 2026-12). */
+START_TEST(test_terms_clone_shares)
+{
+	static const char *const f[] = { "a", "b", "y" };
+	static const double c[] = { 1.5, 0, 0 }, sc[] = { 2, 4, 1 };
+	static const double x[] = { 3.25, -1.5, 7 };
+	struct terms *t = parse_ok("a, b, a^2, a*b", f, 3, 2, 1), *u, *v;
+	double p1[5], p2[5], p3[5];
+	size_t len;
+
+	ck_assert_int_eq(terms_set_scaling(t, c, sc), 0);
+	ck_assert_ptr_nonnull(u = terms_clone(t, 0));
+	ck_assert(terms_shares(t, u));
+	ck_assert(terms_same(t, u));
+	ck_assert(terms_scaling_is_set(u));
+	ck_assert_int_eq(terms_eval(t, x, NULL, p1), 0);
+	terms_free(t);
+	ck_assert_int_eq(terms_eval(u, x, NULL, p2), 0);
+	ck_assert_mem_eq(p1, p2, sizeof(p1));
+	ck_assert_str_eq(terms_list(u, &len), "a, b, a^2, a*b");
+	ck_assert_uint_eq(len, 14);
+	ck_assert_str_eq(terms_fields(u)[2], "y");
+
+	/* Unscaled clone without room: identity for good. */
+	t = parse_ok("a, b, a^2, a*b", f, 3, 2, 1);
+	ck_assert_ptr_nonnull(v = terms_clone(t, 0));
+	ck_assert_int_eq(terms_set_scaling(v, c, sc), E_STATE);
+	ck_assert_int_eq(terms_scaling_auto(v, x, 1), E_STATE);
+	ck_assert_int_eq(terms_eval_original(t, x, NULL, p1), 0);
+	ck_assert_int_eq(terms_eval(v, x, NULL, p3), 0);
+	ck_assert_mem_eq(p1, p3, sizeof(p1));
+	ck_assert(!terms_shares(u, v));
+	ck_assert(terms_same(u, v));
+	terms_free(t);
+	terms_free(v);
+	terms_free(u);
+}
+END_TEST
+
 
 Suite *
 terms_suite(void)
@@ -1161,6 +1202,7 @@ terms_suite(void)
 	TCase *tc;
 
 	tc = tcase_create("grammar");
+	tcase_add_test(tc, test_terms_clone_shares);
 	tcase_add_test(tc, test_terms_parse_basic);
 	tcase_add_test(tc, test_terms_canonical);
 	tcase_add_test(tc, test_terms_errors);

@@ -628,8 +628,11 @@ cmd_memory(const char *confpath, int argc, char **argv)
 		snprintf(name, sizeof(name), "b%d_x", p);
 		if ((cm = conf_find_model(conf, name)) == NULL)
 			return 1;
+		/* A model's own part of the terms: the compiled form is
+		 * shared with its section (terms_clone). */
 		h0 = heap_used();
-		if (conf_model_terms(cm, &t, err, sizeof(err)) != 0)
+		if ((t = terms_clone(cm->terms, cm->scale_mode ==
+		    CONF_SCALE_AUTO)) == NULL)
 			return 1;
 		h1 = heap_used();
 		mo = cm->mo;
