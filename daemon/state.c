@@ -97,6 +97,7 @@ struct ckpt {
 	int		 failed;
 	int		 final;		/* the shutdown checkpoint */
 	char		 err[200];
+	int		 nospace;	/* it failed with ENOSPC or EDQUOT */
 	uint64_t	 gen;		/* checkpoint number (.save ticket) */
 	uint64_t	 epoch;		/* registry snapshot epoch */
 	uint64_t	 seq;		/* first journal segment after it */
@@ -171,6 +172,7 @@ struct state {
 	uint64_t	 saved_changes;	/* registry_changes it covered */
 	int		 ck_pending;	/* another was asked for meanwhile */
 	int		 cfailing;
+	int		 cnospace;	/* the last checkpoint found no space */
 	char		 cerr[200];
 	unsigned	 cretry_ms;
 	uint64_t	 ck_count, ck_failures;
@@ -1292,7 +1294,11 @@ fail:
 		close(st->jfd);
 		st->jfd = -1;
 	} else {
+		/* Give back what a short write took: on a full disk those
+		 * bytes are the room a checkpoint needs. */
 		st->joff = off0;
+		if (st->jfd >= 0 && ftruncate(st->jfd, off0) != 0)
+			(void)0;
 	}
 }
 
@@ -1347,6 +1353,16 @@ jretry_cb(uv_timer_t *t)
 	struct state *st = t->data;
 
 	st->jretry_armed = 0;
+	/* Both failing for lack of space: the checkpoint goes first. It
+	 * covers every record applied so far, so once it is written the
+	 * journal backlog of the segments before it is moot (jprune), and
+	 * a journal retry that fills the room freed on the disk would keep
+	 * it from ever being written. */
+	if (st->cfailing && st->cnospace && !st->shutting) {
+		uv_timer_start(&st->j_retry, jretry_cb, st->jretry_ms, 0);
+		st->jretry_armed = 1;
+		return;
+	}
 	jsubmit(st);
 }
 
@@ -1716,6 +1732,7 @@ cwork_after(uv_work_t *req, int status)
 		st->ck.opened = 0;
 	if (w->err != 0 && !st->ck.failed) {
 		st->ck.failed = 1;
+		st->ck.nospace = w->err == ENOSPC || w->err == EDQUOT;
 		snprintf(st->ck.err, sizeof(st->ck.err), "%s (checkpoint %s "
 		    "%s/%s)", strerror(w->err), w->what, st->dir, w->last &&
 		    strcmp(w->what, "fsync of the directory") == 0 ?
@@ -1892,6 +1909,7 @@ ckpt_finish(struct state *st, int ok)
 		    ls->models, ls->bytes, ls->ms, ls->stall_ms, ls->slices,
 		    ls->slice_max_ms, ls->write_ms);
 		st->cretry_ms = 0;
+		st->cnospace = 0;
 		if (st->cfailing) {
 			st->cfailing = 0;
 			log_notice("state %s: checkpoints succeed again",
@@ -1902,6 +1920,7 @@ ckpt_finish(struct state *st, int ok)
 		snprintf(st->cerr, sizeof(st->cerr), "%s", st->ck.err);
 		st->cretry_ms = backoff(st->cretry_ms);
 		st->cfailing = 1;
+		st->cnospace = st->ck.nospace;
 		if (st->shutting)
 			log_warnx("state: %s; the last good checkpoint and the "
 			    "journal are kept", st->cerr);
