@@ -40,7 +40,10 @@ echo "from day 3, gh5's humidity channel sticks from day 2, gh7 has a burst of"
 echo "spikes on day 4. Data and truth: $OUT/"
 
 step "2. Start coefd (conf/demo.conf) on a private socket"
-"$BUILD/coefd" -c conf/demo.conf -s "$SOCK" 2>"$OUT/coefd.log" &
+# A state directory of its own (under $OUT, emptied above): the demo
+# neither reads nor touches the system's state_dir.
+"$BUILD/coefd" -c conf/demo.conf -s "$SOCK" --state-dir "$OUT/state" \
+    2>"$OUT/coefd.log" &
 DPID=$!
 i=0
 while [ ! -S "$SOCK" ] && [ $i -lt 100 ]; do sleep 0.05; i=$((i + 1)); done
