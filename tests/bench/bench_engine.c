@@ -54,22 +54,27 @@ make_data(int p, double *phi, double *y, uint64_t seed)
 }
 
 /*
- * Flops of one rls_update with a record row and one regularisation row
- * (lambda < 1, delta > 0), counted from the loops in daemon/rls.c: a
- * rotation at column j costs 3 (radius) + 2 (c, s) + 6 (n - j - 1)
- * (4 multiplies and 2 adds per remaining entry); the radius of rho 3; the
- * incoming row p + 1 scalings; the regularisation row starts at column
- * c = record index mod p, averaged over c.
+ * Flops of the update in model_step (rls_update_ap) averaged over K
+ * records (K = rls_reg_block), counted from the loops in daemon/rls.c.
+ * K - 1 records take the fast path: at column k 10 (prefix sum, square
+ * root, reciprocal, c, s, the new pivot) + 5 (n - k - 1) (2 multiplies
+ * and 3 adds or subtractions per remaining entry). One record in K adds
+ * a regularisation row and takes the sequential rotations: a rotation at
+ * column j costs 3 (radius) + 2 (c, s) + 6 (n - j - 1) (4 multiplies and
+ * 2 adds per entry), for the record row and for the regularisation row
+ * from column c (averaged over c). Either way the radius of rho 3, the
+ * incoming row p + 1 scalings, d[] p.
  */
 static double
-flops_update(int p)
+flops_update(int p, int k)
 {
-	double f = 0, reg = 0;
+	double fast = 0, seq = 0, reg = 0;
 	int j, c, n = p + 1;
 
-	for (j = 0; j < p; j++)
-		f += 5 + 6.0 * (n - j - 1);
-	f += 3 + (p + 1) + p;	/* rho, scaling, d[] */
+	for (j = 0; j < p; j++) {
+		fast += 10 + 5.0 * (n - j - 1);
+		seq += 5 + 6.0 * (n - j - 1);
+	}
 	for (c = 0; c < p; c++) {
 		double g = 3;
 
@@ -77,7 +82,7 @@ flops_update(int p)
 			g += 5 + 6.0 * (n - j - 1);
 		reg += g;
 	}
-	return f + reg / p;
+	return 3 + (p + 1) + p + ((k - 1) * fast + seq + reg / p) / k;
 }
 
 /* Flops of rls_apriori: forward substitution (p divides, p(p-1)
@@ -217,7 +222,8 @@ cmd_engine(int argc, char **argv, int runs)
 			return 1;
 		make_data(p, phi, y, 42 + (uint64_t)p);
 		printf("flops p=%d update=%.0f apriori=%.0f\n", p,
-		    flops_update(p), flops_apriori(p));
+		    flops_update(p, rls_reg_block(p, bench_lambda())),
+		    flops_apriori(p));
 
 		memset(&ro, 0, sizeof(ro));
 		ro.p = p;

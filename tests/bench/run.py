@@ -283,9 +283,17 @@ def bench(tmp):
         "; ratios below use %s; rotation loops run the %s clone" % (
             best_isa, clone))
     emit("   one dependent Givens step (sqrt, 2 divisions, multiply-"
-         "subtract): %.1f ns +-%.0f%%; an update is a chain of about p + 2 "
-         "such steps, so rls_update cannot beat 1 / ((p + 2) x %.1f ns): "
-         "the 'chain bound' column" % (step, spread(chain), step))
+         "subtract): %.1f ns +-%.0f%%; rls_update alone rotates in "
+         "sequence, a chain of about p + 2 such steps, so it cannot beat "
+         "1 / ((p + 2) x %.1f ns): the 'chain bound' column. model_step "
+         "reuses rls_apriori's forward substitution and takes the "
+         "rotation parameters from its prefix sums (rls.c, fast path), "
+         "no such chain, except on the one record in K that carries a "
+         "regularisation row (K = %s for p = %s)" % (
+             step, spread(chain), step,
+             ", ".join(str(max(1, int(1 / (4 * p * 0.01))))
+                       for p in ENGINE_P),
+             ", ".join(str(p) for p in ENGINE_P)))
 
     # -- engine and numpy
     eng, flops = {}, {}
@@ -334,7 +342,8 @@ def bench(tmp):
             "%.0fx" % (rm / rn), "%.0f" % (fu + fa),
             "%.1f%%" % (100 * rm * (fu + fa) / best_peak), tgt))
     emit("   (x numpy and %% peak are for model_step, the daemon's path; "
-         "flops = rls_update + rls_apriori counted from the loops: %s)" %
+         "flops = its update (averaged over K records) + rls_apriori, "
+         "counted from the loops: %s)" %
          ", ".join("p=%d %.0f+%.0f" % (p, *flops[p]) for p in ENGINE_P))
     emit()
 
