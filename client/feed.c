@@ -233,11 +233,9 @@ trim(char *s)
 }
 
 /*
- * The model's fields and target from a .get reply. When the model does not
- * exist yet, a `.predict NAME prev=0` makes the daemon create it from its
- * configuration ("prev" is reserved, so it is never a field: the request
- * itself is always refused, and a model created for a rejected line stays,
- * as registry.c documents); then .get is asked again.
+ * The model's fields and target, from the reply to `.open NAME` (the
+ * model object of `.get`; the daemon creates the model from its
+ * configuration first if it does not exist yet).
  */
 static int
 get_fields(struct feed *f)
@@ -247,37 +245,24 @@ get_fields(struct feed *f)
 	struct jr *r = NULL;
 	const char *why;
 	size_t i;
-	int rc, attempt;
+	int rc;
 
-	for (attempt = 0; attempt < 2; attempt++) {
-		snprintf(line, sizeof(line), ".get %s", f->model);
-		if ((rc = conn_send(&f->k, line)) != 0 ||
-		    (rc = conn_reply(&f->k, &r)) != 0)
-			return rc;
-		why = conn_is_error(r);
-		if (why == NULL)
-			break;
-		if (strcmp(why, "unknown_model") != 0 || attempt > 0) {
-			conn_print_error(r);
-			rc = conn_error_exit(why);
-			jr_free(r);
-			return rc;
-		}
-		jr_free(r);
-		snprintf(line, sizeof(line), ".predict %s prev=0", f->model);
-		if ((rc = conn_send(&f->k, line)) != 0 ||
-		    (rc = conn_reply(&f->k, &r)) != 0)
-			return rc;
-		why = conn_is_error(r);
-		if (why != NULL && strcmp(why, "unknown_model") == 0) {
+	snprintf(line, sizeof(line), ".open %s", f->model);
+	if ((rc = conn_send(&f->k, line)) != 0 ||
+	    (rc = conn_reply(&f->k, &r)) != 0)
+		return rc;
+	if ((why = conn_is_error(r)) != NULL) {
+		if (strcmp(why, "unknown_model") == 0) {
 			ctl_err("no model %s, and no [model] or [template] "
 			    "section of the daemon's configuration makes one",
 			    f->model);
 			jr_free(r);
 			return CTL_EXIT_NOTFOUND;
 		}
+		conn_print_error(r);
+		rc = conn_error_exit(why);
 		jr_free(r);
-		r = NULL;
+		return rc;
 	}
 	fl = jr_find(r, "fields");
 	if (fl == NULL || jr_str(jr_find(r, "target")) == NULL) {

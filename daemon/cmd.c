@@ -642,6 +642,22 @@ cmd_version(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
 	return 1;
 }
 
+/* .open NAME: .get, after creating the model from its configuration
+ * section if it does not exist yet (as its first record would). Lets a
+ * client learn a configured model's fields before sending records. */
+static int
+cmd_open(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
+    double now, struct json *j)
+{
+	struct reg_entry *e;
+	struct reg_result res;
+
+	memset(&res, 0, sizeof(res));
+	if (registry_get(c->reg, msg->model.ptr, msg->model.len, &e, &res) != 0)
+		return reject(c, j, msg->line, res.reason, res.detail);
+	return cmd_get(c, s, msg, now, j);
+}
+
 static int
 cmd_bye(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
     double now, struct json *j)
@@ -673,6 +689,7 @@ static const struct {
 	{ PROTO_CMD_AUTH, cmd_auth },
 	{ PROTO_CMD_VERSION, cmd_version },
 	{ PROTO_CMD_BYE, cmd_bye },
+	{ PROTO_CMD_OPEN, cmd_open },
 };
 
 /*

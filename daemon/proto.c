@@ -110,6 +110,7 @@ static const struct proto_cmd_info cmd_table[PROTO_NCMDS] = {
 	[PROTO_CMD_AUTH] = { ".auth", PROTO_CMD_AUTH, 1, 1, PROTO_CMD_SECRET },
 	[PROTO_CMD_VERSION] = { ".version", PROTO_CMD_VERSION, 0, 0, 0 },
 	[PROTO_CMD_BYE] = { ".bye", PROTO_CMD_BYE, 0, 0, 0 },
+	[PROTO_CMD_OPEN] = { ".open", PROTO_CMD_OPEN, 1, 1, PROTO_CMD_NAME },
 };
 
 /*

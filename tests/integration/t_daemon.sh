@@ -97,6 +97,21 @@ st=$(printf '.stats\n' | send)
 check "stats: 500 used, 8 rejected" \
     [ "$(jget "$st" 'd["records"]["used"], d["rejected_total"]')" = "(500, 8)" ]
 
+# .open: a configured model that has no record yet is created and shown
+# (its fields, no data); an existing one is shown as .get shows it; a name
+# no section makes is unknown_model, and nothing is created.
+r=$(printf '.open flow_9\n' | send)
+check ".open creates a template's model: fields and n = 0" \
+    [ "$(jget "$r" 'd["model"], d["fields"], d["target"], d["n"]')" = "('flow_9', ['raw', 'temp'], 'ref', 0)" ]
+r=$(printf '.open flow_1\n.get flow_1\n' | send)
+check ".open of an existing model equals .get" \
+    [ "$(printf '%s\n' "$r" | sed -n 1p)" = "$(printf '%s\n' "$r" | sed -n 2p | sed 's/"line":2/"line":1/')" ]
+r=$(printf '.open nosuch\n.list\n' | send)
+check ".open of a name no section makes: unknown_model" \
+    [ "$(jget "$(printf '%s\n' "$r" | sed -n 1p)" 'd["error"]')" = unknown_model ]
+check "  and nothing is created" \
+    [ "$(jget "$(printf '%s\n' "$r" | sed -n 2p)" '"nosuch" in [m["model"] for m in d["models"]]')" = False ]
+
 # SIGHUP with a changed config: the model keeps its state, new settings
 # apply; a broken config is logged and the old one kept.
 sed 's/^memory = 1$/memory = 0.999/' "$TMP/a.conf" >"$TMP/b.conf"
