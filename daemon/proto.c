@@ -561,6 +561,7 @@ load8(const char *p)
 	return w;
 }
 
+#ifndef __SSE2__
 /*
  * One bit per byte of w (bit k for byte k, the k-th in memory) that is
  * not an ASCII digit. x = w ^ '0' maps the digits to 0..9; (x & 0x7f) +
@@ -579,6 +580,7 @@ nondigits(uint64_t w)
 	x = ((((x & (0x7f * ONES8)) + 0x76 * ONES8) | x) & HIGHS8) >> 7;
 	return (unsigned)((x * 0x0102040810204080ULL) >> 56);
 }
+#endif
 
 /* Bit k: s[k] is not an ASCII digit (k < 16; 16 bytes readable at s). */
 static inline unsigned
@@ -634,6 +636,7 @@ word16(uint64_t lo, uint64_t hi, size_t n)
 #endif
 
 #if HAVE_SWAR
+#ifndef __SSE2__
 /*
  * One bit per byte of w (bit k for the k-th byte) that is a blank (space
  * or tab). y = w ^ c has a zero byte where w has c; ((y & 0x7f) + 0x7f)
@@ -650,6 +653,7 @@ blanks8(uint64_t w)
 	x = (~(s & t) & HIGHS8) >> 7;
 	return (unsigned)((x * 0x0102040810204080ULL) >> 56);
 }
+#endif
 
 /* Bit k: p[k] is a blank (k < 16; 16 bytes readable at p). */
 static inline unsigned
