@@ -1743,14 +1743,43 @@ parse_line(const char *s, size_t len, const char *lim, uint64_t lineno,
 
 	if (len > 0 && s[len - 1] == '\r')
 		len--;
-	if ((rc = check_bytes(s, len, lim, msg)) != PROTO_MSG)
-		return rc;
-
 	c.p = s;
 	c.end = s + len;
 	c.lim = lim;
 	while (c.p < c.end && IS(*c.p, C_BLANK))
 		c.p++;
+#if HAVE_SWAR
+	/*
+	 * A feed record first. A line fast_record takes is made of blanks,
+	 * model name bytes, digits, points, signs and one '@', each looked
+	 * at, so check_bytes would find nothing in it; any other line is
+	 * checked and parsed below as if this had not been tried.
+	 */
+	if (c.p < c.end && IS(*c.p, C_ALNUM)) {
+		const char *p = c.p;
+
+		while (p < c.end && IS(*p, C_MODEL))
+			p++;
+		if ((p == c.end || IS(*p, C_BLANK)) &&
+		    (size_t)(p - c.p) <= MODEL_NAME_MAX) {
+			struct cursor fc = { p, c.end, lim };
+
+			msg->model.ptr = c.p;
+			msg->model.len = (size_t)(p - c.p);
+			if (fast_record(&fc, msg)) {
+				msg->kind = PROTO_RECORD;
+				return PROTO_MSG;
+			}
+			msg->model.ptr = NULL;
+			msg->model.len = 0;
+			msg->has_time = msg->has_target = 0;
+			msg->time = msg->target = 0.0;
+			msg->nvalues = 0;
+		}
+	}
+#endif
+	if ((rc = check_bytes(s, len, lim, msg)) != PROTO_MSG)
+		return rc;
 	if (c.p == c.end || *c.p == '#')
 		return PROTO_MSG;	/* PROTO_EMPTY */
 	if (*c.p == '.') {
@@ -1775,13 +1804,6 @@ parse_line(const char *s, size_t len, const char *lim, uint64_t lineno,
 	}
 	msg->kind = PROTO_RECORD;
 
-#if HAVE_SWAR
-	if (fast_record(&c, msg))
-		return PROTO_MSG;
-	msg->has_time = msg->has_target = 0;
-	msg->time = msg->target = 0.0;
-	msg->nvalues = 0;
-#endif
 	/* Optional @TIME right after the model. */
 	while (c.p < c.end && IS(*c.p, C_BLANK))
 		c.p++;

@@ -1045,6 +1045,38 @@ START_TEST(test_proto_numbers_feed_edges)
 				free(buf);
 			}
 	ck_assert_int_eq(count, (long)(nt * nt * 24 * 2));
+
+	/* A NUL byte or bad UTF-8 inside a long feed line: the same error
+	 * (nul_byte / bad_utf8, with its byte offset) as the line alone. */
+	{
+		static const char *const bad[] = {
+			"\0", "1\0", "\xff", "2.\xe2\x82", "\xc3\xa9", "\r", "\v",
+		};
+		const size_t bl[] = { 1, 2, 1, 4, 2, 1, 1 };
+		size_t at;
+
+		for (a = 0; a < sizeof(bad) / sizeof(bad[0]); a++)
+			for (at = 0; at < 6; at++) {
+				n = (size_t)sprintf(line, "m @1764640000.5");
+				for (b = 0; b < 8; b++) {
+					line[n++] = ' ';
+					if (b == at) {
+						memcpy(line + n, bad[a], bl[a]);
+						n += bl[a];
+					} else
+						n += (size_t)sprintf(line + n,
+						    "-%zu.25", b);
+				}
+				n += (size_t)sprintf(line + n, " %60s", "7");
+				buf = malloc(n + 1);
+				ck_assert_ptr_nonnull(buf);
+				memcpy(buf, line, n);
+				buf[n] = '\n';
+				(void)feed_and_compare(buf, n + 1, 0);
+				ck_assert_int_eq(msg.kind, PROTO_EMPTY);
+				free(buf);
+			}
+	}
 }
 END_TEST
 
