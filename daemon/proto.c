@@ -752,73 +752,95 @@ tok_number(const char *s, size_t n, double *out)
  * and must be reset by the caller, which parses the rest the general
  * way. c is not moved.
  */
+/* The 64 bytes of a line fast_record is looking at. */
+struct window {
+	const char	*base;	/* first byte */
+	uint64_t	 bits;	/* blanks64(base, ...) */
+	size_t		 pos;	/* next byte to look at, from base */
+};
+
+/*
+ * The next token of the line for fast_record: 1 with *tok and *n, 0 at
+ * the end of the line, -1 when it is not ours (64 bytes or more, or too
+ * near the end of the readable bytes).
+ */
+static inline int
+win_next(const struct cursor *c, struct window *w, const char **tok,
+    size_t *n)
+{
+	uint64_t b;
+	size_t st;
+
+	for (;;) {
+		b = w->pos < LINE_WIN ? ~w->bits & ~0ULL << w->pos : 0;
+		if (b == 0) {
+			/* No token starts in the rest of this window. */
+			if (c->end - w->base <= LINE_WIN)
+				return 0;
+			w->base += LINE_WIN;
+		} else {
+			st = (size_t)__builtin_ctzll(b);
+			b = w->bits & ~0ULL << st;
+			if (b != 0) {
+				w->pos = (size_t)__builtin_ctzll(b);
+				*tok = w->base + st;
+				*n = w->pos - st;
+				return 1;
+			}
+			/* The token runs past the window: move the window
+			 * to it (a token of 64 bytes or more is not ours). */
+			if (st == 0)
+				return -1;
+			w->base += st;
+		}
+		w->pos = 0;
+		if (c->lim - w->base < LINE_WIN + SWAR_READ)
+			return -1;
+		w->bits = blanks64(w->base, (size_t)(c->end - w->base));
+	}
+}
+
 static int
 fast_record(const struct cursor *c, struct proto_msg *msg)
 {
-	const char *base = c->p, *tok;
-	uint64_t bits, b;
-	size_t pos = 0, st, en, k = 0;
-	double v;
+	struct window w;
+	struct proto_value *val = msg->values;
+	const char *tok;
+	size_t n, k = 1;
+	int r;
 
-	if (c->lim - base < LINE_WIN + SWAR_READ)
+	w.base = c->p;
+	w.pos = 0;
+	if (c->lim - w.base < LINE_WIN + SWAR_READ)
 		return 0;
-	bits = blanks64(base, (size_t)(c->end - base));
-	for (;;) {
-		b = pos < LINE_WIN ? ~bits & ~0ULL << pos : 0;
-		if (b == 0) {
-			/* No token starts in the rest of this window. */
-			if (c->end - base <= LINE_WIN)
-				break;
-			base += LINE_WIN;
-			pos = 0;
-			if (c->lim - base < LINE_WIN + SWAR_READ)
-				return 0;
-			bits = blanks64(base, (size_t)(c->end - base));
-			continue;
-		}
-		st = (size_t)__builtin_ctzll(b);
-		b = bits & ~0ULL << st;
-		if (b == 0) {
-			/* The token runs past the window: move the window to
-			 * it (a token of 64 bytes or more is not ours). */
-			if (st == 0)
-				return 0;
-			base += st;
-			pos = 0;
-			if (c->lim - base < LINE_WIN + SWAR_READ)
-				return 0;
-			bits = blanks64(base, (size_t)(c->end - base));
-			continue;
-		}
-		en = (size_t)__builtin_ctzll(b);
-		tok = base + st;
-		pos = en;
-		if (++k > PROTO_MAX_VALUES)
+	w.bits = blanks64(w.base, (size_t)(c->end - w.base));
+	if (win_next(c, &w, &tok, &n) <= 0)
+		return 0;
+	if (*tok == '@') {
+		/* Epoch seconds: no sign, a digit first, and digits after a
+		 * point; the value is proto_parse_time's. */
+		if (n < 2 || !ISDIGIT(tok[1]) ||
+		    !tok_number(tok + 1, n - 1, &msg->time) ||
+		    tok[n - 1] == '.')
 			return 0;
-		if (k == 1 && *tok == '@' && !msg->has_time) {
-			/* Epoch seconds: no sign, a digit first, and digits
-			 * after a point; the value is proto_parse_time's. */
-			if (en - st < 2 || !ISDIGIT(tok[1]) ||
-			    !tok_number(tok + 1, en - st - 1, &msg->time) ||
-			    tok[en - st - 1] == '.')
-				return 0;
-			msg->has_time = 1;
-			k = 0;		/* the target comes next */
-			continue;
-		}
-		if (!tok_number(tok, en - st, &v))
+		msg->has_time = 1;
+		if (win_next(c, &w, &tok, &n) <= 0)
 			return 0;
-		if (k == 1) {
-			msg->target = v;
-			msg->has_target = 1;
-		} else {
-			msg->values[msg->nvalues].name.ptr = NULL;
-			msg->values[msg->nvalues].name.len = 0;
-			msg->values[msg->nvalues].v = v;
-			msg->nvalues++;
-		}
 	}
-	return k > 0;
+	if (!tok_number(tok, n, &msg->target))
+		return 0;
+	msg->has_target = 1;
+	while ((r = win_next(c, &w, &tok, &n)) > 0) {
+		if (++k > PROTO_MAX_VALUES || !tok_number(tok, n, &val->v))
+			return 0;
+		val->name.ptr = NULL;
+		val->name.len = 0;
+		val++;
+	}
+	if (r < 0)
+		return 0;
+	msg->nvalues = (size_t)(val - msg->values);
+	return 1;
 }
 #endif
 
