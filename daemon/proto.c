@@ -588,10 +588,11 @@ nondigits16(const char *s)
 {
 #ifdef __SSE2__
 	/* Bytes minus '0' that stay themselves under min(., 9) are digits. */
-	__m128i v = _mm_sub_epi8(_mm_loadu_si128((const __m128i *)(const void *)s),
-	    _mm_set1_epi8('0'));
-	__m128i d = _mm_cmpeq_epi8(_mm_min_epu8(v, _mm_set1_epi8(9)), v);
+	__m128i v = _mm_loadu_si128((const __m128i *)(const void *)s);
+	__m128i d;
 
+	v = _mm_sub_epi8(v, _mm_set1_epi8('0'));
+	d = _mm_cmpeq_epi8(_mm_min_epu8(v, _mm_set1_epi8(9)), v);
 	return ~(unsigned)_mm_movemask_epi8(d) & 0xffffu;
 #else
 	return nondigits(load8(s)) | nondigits(load8(s + 8)) << 8;

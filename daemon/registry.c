@@ -29,7 +29,7 @@ struct registry {
 	uint64_t	  epoch;	/* last snapshot epoch */
 	int		  snap_active;	/* a snapshot is being taken */
 	uint64_t	  changes;	/* state changes so far */
-	struct reg_entry *last;		/* last entry registry_get returned */
+	struct reg_entry *last;		/* registry_get's last answer */
 };
 
 /* Before e changes: let a running snapshot copy it first. New entries

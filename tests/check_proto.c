@@ -822,7 +822,7 @@ gen_feed_line(uint64_t *rs, char *out)
 	uint64_t r = rng_next(rs);
 	char *p = out;
 	size_t i, nv = 1 + (size_t)(r % 20), nd;
-	int odd_ok = (r >> 40) % 4 == 0;	/* else a line that should pass */
+	int odd_ok = (r >> 40) % 4 == 0;	/* else the line should pass */
 
 	p += sprintf(p, "%s", (r >> 8) % 8 ? "m" : "m.long-name_1");
 	if ((r >> 12) % 2) {
@@ -912,8 +912,8 @@ check_line_vs_strtod(const char *line, size_t len, const struct proto_msg *m)
 		tok[n] = '\0';
 		p = t;
 		if (tok[0] == '@' && k == 0 && m->has_time) {
-			ck_assert_int_eq(proto_parse_time(tok + 1, n - 1, &want),
-			    0);
+			ck_assert_int_eq(proto_parse_time(tok + 1, n - 1,
+			    &want), 0);
 			ck_assert_msg(same_bits(m->time, want), "\"%s\": time "
 			    "%a vs %a", tok, m->time, want);
 			continue;
@@ -955,7 +955,8 @@ feed_and_compare(const char *buf, size_t len, uint64_t seed)
 	while (off < len) {
 		chunk = len - off;
 		if (seed != 0)
-			chunk = 1 + rng_next(&seed) % (chunk < 300 ? chunk : 300);
+			chunk = 1 + rng_next(&seed) %
+			    (chunk < 300 ? chunk : 300);
 		while (chunk > 0) {
 			rc = proto_next(rd, buf + off, chunk, &used, &msg);
 			off += used;
@@ -1033,9 +1034,9 @@ START_TEST(test_proto_numbers_feed_edges)
 	for (a = 0; a < nt; a++)
 		for (b = 0; b < nt; b++)
 			for (pad = 0; pad < 70; pad += 3) {
-				n = (size_t)sprintf(line, "m @1764640000.%03zu%*s "
-				    "%s %s", pad, (int)pad, "", toks[a],
-				    toks[b]);
+				n = (size_t)sprintf(line,
+				    "m @1764640000.%03zu%*s %s %s", pad,
+				    (int)pad, "", toks[a], toks[b]);
 				len = n + 1;
 				buf = malloc(len);
 				ck_assert_ptr_nonnull(buf);
@@ -1050,7 +1051,8 @@ START_TEST(test_proto_numbers_feed_edges)
 	 * (nul_byte / bad_utf8, with its byte offset) as the line alone. */
 	{
 		static const char *const bad[] = {
-			"\0", "1\0", "\xff", "2.\xe2\x82", "\xc3\xa9", "\r", "\v",
+			"\0", "1\0", "\xff", "2.\xe2\x82", "\xc3\xa9", "\r",
+			"\v",
 		};
 		const size_t bl[] = { 1, 2, 1, 4, 2, 1, 1 };
 		size_t at;
