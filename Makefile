@@ -100,6 +100,7 @@ TEST_SRC = \
 	tests/check_persist.c \
 	tests/check_proto.c \
 	tests/check_recursive.c \
+	tests/check_registry.c \
 	tests/check_rls.c \
 	tests/check_stats.c \
 	tests/check_terms.c \

@@ -29,6 +29,7 @@ struct registry {
 	uint64_t	  epoch;	/* last snapshot epoch */
 	int		  snap_active;	/* a snapshot is being taken */
 	uint64_t	  changes;	/* state changes so far */
+	struct reg_entry *last;		/* registry_get's last answer */
 };
 
 /* Before e changes: let a running snapshot copy it first. New entries
@@ -114,7 +115,8 @@ probe(const struct registry *r, const char *name, size_t len)
 {
 	size_t i = (size_t)hash(name, len) & (r->cap - 1);
 
-	while (r->slot[i] != NULL && (strlen(r->slot[i]->name) != len ||
+	/* len <= MODEL_NAME_MAX, so name[len] is inside the entry's name. */
+	while (r->slot[i] != NULL && (r->slot[i]->name[len] != '\0' ||
 	    memcmp(r->slot[i]->name, name, len) != 0))
 		i = (i + 1) & (r->cap - 1);
 	return i;
@@ -234,8 +236,8 @@ fail:
 /*
  * registry_get: the entry for name[0..len); when absent, create it from
  * the config ([model] of that name, else the first matching [template]).
- * On failure returns -1 with res->reason (unknown_model, model_limit,
- * internal) and res->detail set.
+ * On failure returns -1 with res->reason (unknown_model, also for a len
+ * of 0 or over MODEL_NAME_MAX; model_limit; internal) and res->detail set.
  */
 int
 registry_get(struct registry *r, const char *name, size_t len,
@@ -245,11 +247,28 @@ registry_get(struct registry *r, const char *name, size_t len,
 	struct reg_entry *e;
 	char nm[MODEL_NAME_MAX + 1], err[160];
 
-	if ((e = registry_find(r, name, len)) != NULL) {
+	/* A feed mostly names the model of its previous line again: try
+	 * that entry before hashing. Entries stay at the same address until
+	 * registry_free (registry_rebuild swaps their contents in place). */
+	e = r->last;
+	if (e != NULL && len <= MODEL_NAME_MAX && e->name[len] == '\0' &&
+	    memcmp(e->name, name, len) == 0) {
 		*out = e;
 		return 0;
 	}
+	if ((e = registry_find(r, name, len)) != NULL) {
+		*out = r->last = e;
+		return 0;
+	}
 	*out = NULL;
+	if (len == 0 || len > MODEL_NAME_MAX) {
+		/* Not a model name (the protocol never passes one); nm
+		 * could not hold it. */
+		res->reason = PROTO_R_UNKNOWN_MODEL;
+		err_printf(res->detail, sizeof(res->detail), "a model name "
+		    "has 1 to %d bytes, not %zu", MODEL_NAME_MAX, len);
+		return -1;
+	}
 	memcpy(nm, name, len);
 	nm[len] = '\0';
 	if (r->conf == NULL || (cm = conf_find_model(r->conf, nm)) == NULL) {
@@ -452,7 +471,12 @@ registry_record(struct registry *r, const struct proto_msg *msg, double now,
 	double x[PROTO_MAX_VALUES + 2];
 	int has_target, rc;
 
-	memset(res, 0, sizeof(*res));
+	/* Field by field: a record need not clear all of detail[]. */
+	res->kind = REG_USED;
+	res->detail[0] = '\0';
+	res->entry = NULL;
+	res->events = 0;
+	res->yhat = res->se = res->lo = res->hi = 0.0;
 	res->reason = PROTO_NREASONS;
 	res->t = msg->has_time ? msg->time : now;
 	if (registry_get(r, msg->model.ptr, msg->model.len, &e, res) != 0)

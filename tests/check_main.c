@@ -33,6 +33,7 @@ main(void)
 	srunner_add_suite(sr, activate_suite());
 	srunner_add_suite(sr, confman_suite());
 	srunner_add_suite(sr, persist_suite());
+	srunner_add_suite(sr, registry_suite());
 	srunner_run_all(sr, CK_NORMAL);
 	nfail = srunner_ntests_failed(sr);
 	nrun = srunner_ntests_run(sr);

@@ -756,6 +756,332 @@ START_TEST(test_proto_numbers_mutated_vs_regex)
 }
 END_TEST
 
+/*
+ * Feeds: records read by proto_next from a buffer, where the parser may
+ * load whole words past a token (up to the end of the bytes it was
+ * given) and reads a line's blanks 64 bytes at a time. Every line must
+ * give exactly what proto_parse_line gives on a copy of that line alone
+ * (which reads nothing outside it), and every number the same double as
+ * glibc strtod (IEEE 754 binary64, round to nearest even).
+ */
+
+/* A token for a feed: the word-at-a-time shape [+-]?D*(.D*)? with 0-16
+ * digits on each side of the point, mostly short; when odd_ok, also any
+ * number of gen_number or a near miss. */
+static size_t
+gen_feed_token(uint64_t *rs, char *out, int odd_ok)
+{
+	static const char *const odd[] = {
+		".", "-", "+", "-.", "+.", "1.2.3", "1e5", "-1E-5", "?", "x=1",
+		"1..", "@5", "1-", "--1", "+-1", "1,5", "0x1", "nan", "-inf",
+		"1.5e", "5.", ".5", "-0", "+0.0", "1e400", "12345678901234567",
+		"-.000000000000001", "999999999999999", "9007199254740993",
+		"\xc3\xa9", "#", "1_0",
+	};
+	uint64_t r = rng_next(rs);
+	char *p = out;
+	size_t i, ni, nf;
+
+	switch (odd_ok ? r % 10 : 0) {
+	case 8:
+		return gen_number(rs, out);
+	case 9:
+		strcpy(out, odd[(r >> 8) % (sizeof(odd) / sizeof(odd[0]))]);
+		return strlen(out);
+	default:
+		break;
+	}
+	if ((r >> 4) % 3 == 1)
+		*p++ = '-';
+	else if ((r >> 4) % 3 == 2 && (r >> 6) % 4 == 0)
+		*p++ = '+';
+	ni = (size_t)((r >> 8) % 17);
+	nf = (size_t)((r >> 16) % 17);
+	/* Short integer parts and up to 7 fraction digits are the common
+	 * case of real feeds (and of 15 digits at most: the fast path). */
+	if ((r >> 24) % 16 != 0) {
+		ni %= 3;
+		nf %= 8;
+	}
+	for (i = 0; i < ni; i++)
+		*p++ = (char)('0' + rng_next(rs) % 10);
+	if ((r >> 28) % 4 != 0) {
+		*p++ = '.';
+		for (i = 0; i < nf; i++)
+			*p++ = (char)('0' + rng_next(rs) % 10);
+	} else if (ni == 0)
+		*p++ = '7';
+	*p = '\0';
+	return (size_t)(p - out);
+}
+
+/* One record line (no LF) of random tokens and blanks into out. */
+static size_t
+gen_feed_line(uint64_t *rs, char *out)
+{
+	uint64_t r = rng_next(rs);
+	char *p = out;
+	size_t i, nv = 1 + (size_t)(r % 20), nd;
+	int odd_ok = (r >> 40) % 4 == 0;	/* else the line should pass */
+
+	p += sprintf(p, "%s", (r >> 8) % 8 ? "m" : "m.long-name_1");
+	if ((r >> 12) % 2) {
+		/* Epoch times D+ / D+.D+, some malformed. */
+		*p++ = ' ';
+		*p++ = '@';
+		if (odd_ok && (r >> 13) % 4 == 0)
+			*p++ = (r >> 17) % 2 ? '-' : '+';
+		nd = (size_t)((r >> 20) % ((r >> 25) % 4 ? 11 : 17)) + !odd_ok;
+		for (i = 0; i < nd; i++)
+			*p++ = (char)('0' + rng_next(rs) % 10);
+		if ((r >> 26) % 3 != 0) {
+			*p++ = '.';
+			nd = (size_t)((r >> 28) % ((r >> 25) % 4 ? 4 : 17)) +
+			    !odd_ok;
+			for (i = 0; i < nd; i++)
+				*p++ = (char)('0' + rng_next(rs) % 10);
+		}
+	}
+	for (i = 0; i < nv; i++) {
+		uint64_t b = rng_next(rs);
+
+		*p++ = b % 4 == 0 ? '\t' : ' ';
+		if (b % 8 == 1)
+			*p++ = ' ';
+		p += gen_feed_token(rs, p, odd_ok);
+	}
+	if ((r >> 32) % 8 == 0)
+		*p++ = ' ';
+	if ((r >> 36) % 8 == 0)
+		*p++ = '\r';
+	*p = '\0';
+	return (size_t)(p - out);
+}
+
+/* msg as read from a feed equals msg2 from proto_parse_line. */
+static void
+expect_same_msg(int rc, const struct proto_msg *a, int rc2,
+    const struct proto_msg *b, const char *line)
+{
+	size_t i;
+
+	ck_assert_msg(rc == rc2 && a->kind == b->kind &&
+	    a->reason == b->reason && strcmp(a->detail, b->detail) == 0,
+	    "\"%s\": feed rc %d %s \"%s\", line rc %d %s \"%s\"", line, rc,
+	    proto_reason_str(a->reason), a->detail, rc2,
+	    proto_reason_str(b->reason), b->detail);
+	if (rc != PROTO_MSG)
+		return;
+	ck_assert_msg(a->has_time == b->has_time &&
+	    same_bits(a->time, b->time) && a->has_target == b->has_target &&
+	    same_bits(a->target, b->target) && a->named == b->named &&
+	    a->nvalues == b->nvalues && a->model.len == b->model.len,
+	    "\"%s\": fields differ", line);
+	for (i = 0; i < a->nvalues; i++)
+		ck_assert_msg(same_bits(a->values[i].v, b->values[i].v) &&
+		    a->values[i].name.len == b->values[i].name.len,
+		    "\"%s\": value %zu: %a vs %a", line, i, a->values[i].v,
+		    b->values[i].v);
+}
+
+/* Every number of an accepted positional line against strtod, the time
+ * against proto_parse_time. Returns the numbers compared. */
+static long
+check_line_vs_strtod(const char *line, size_t len, const struct proto_msg *m)
+{
+	char tok[1200];
+	const char *p = line, *end = line + len, *t;
+	size_t k = 0, n;
+	long count = 0;
+	double want;
+
+	if (len > 0 && end[-1] == '\r')
+		end--;
+	while (p < end && *p != ' ' && *p != '\t')
+		p++;		/* the model */
+	for (;;) {
+		while (p < end && (*p == ' ' || *p == '\t'))
+			p++;
+		if (p == end)
+			break;
+		for (t = p; t < end && *t != ' ' && *t != '\t'; t++)
+			;
+		n = (size_t)(t - p);
+		ck_assert_uint_lt(n, sizeof(tok));
+		memcpy(tok, p, n);
+		tok[n] = '\0';
+		p = t;
+		if (tok[0] == '@' && k == 0 && m->has_time) {
+			ck_assert_int_eq(proto_parse_time(tok + 1, n - 1,
+			    &want), 0);
+			ck_assert_msg(same_bits(m->time, want), "\"%s\": time "
+			    "%a vs %a", tok, m->time, want);
+			continue;
+		}
+		want = strtod(tok, NULL);
+		if (k == 0 && m->has_target)
+			ck_assert_msg(same_bits(m->target, want), "\"%s\": "
+			    "target %a vs strtod %a", tok, m->target, want);
+		else if (k < m->nvalues + (size_t)m->has_target)
+			ck_assert_msg(same_bits(m->values[k -
+			    (size_t)m->has_target].v, want), "\"%s\": %a vs "
+			    "strtod %a", tok, m->values[k -
+			    (size_t)m->has_target].v, want);
+		k++;
+		count++;
+	}
+	ck_assert_uint_eq(k, m->nvalues + (size_t)m->has_target);
+	return count;
+}
+
+/*
+ * Parse buf[0..len) (lines with LF) with a reader, in chunks of random
+ * size when seed != 0 (lines then also get assembled in the reader's own
+ * buffer), and compare every line as above. Returns the numbers compared
+ * against strtod.
+ */
+static long
+feed_and_compare(const char *buf, size_t len, uint64_t seed)
+{
+	static struct proto_msg m2;
+	struct proto_reader *rd = proto_reader_new(PROTO_LINE_DEFAULT);
+	const char *line = buf;
+	size_t off = 0, used, chunk, ll;
+	long count = 0;
+	int rc, rc2;
+	char *copy;
+
+	ck_assert_ptr_nonnull(rd);
+	while (off < len) {
+		chunk = len - off;
+		if (seed != 0)
+			chunk = 1 + rng_next(&seed) %
+			    (chunk < 300 ? chunk : 300);
+		while (chunk > 0) {
+			rc = proto_next(rd, buf + off, chunk, &used, &msg);
+			off += used;
+			chunk -= used;
+			if (rc == PROTO_NEED_MORE)
+				break;
+			/* This line and a copy of it alone, exactly sized so
+			 * the sanitizers see any read beyond it. */
+			ll = (size_t)((const char *)memchr(line, '\n',
+			    (size_t)(buf + len - line)) - line);
+			ck_assert_ptr_nonnull(copy = malloc(ll + 1));
+			memcpy(copy, line, ll);
+			rc2 = proto_parse_line(copy, ll, msg.line, &m2);
+			expect_same_msg(rc, &msg, rc2, &m2, copy);
+			if (rc == PROTO_MSG && msg.kind == PROTO_RECORD &&
+			    !msg.named)
+				count += check_line_vs_strtod(copy, ll, &msg);
+			free(copy);
+			line += ll + 1;
+		}
+	}
+	proto_reader_free(rd);
+	return count;
+}
+
+START_TEST(test_proto_numbers_feed_vs_strtod)
+{
+	const size_t cap = 300000;
+	char *buf = malloc(cap), *exact;
+	uint64_t seed = 20261202;
+	size_t len;
+	long count = 0, round;
+
+	ck_assert_ptr_nonnull(buf);
+	for (round = 0; round < 16; round++) {
+		len = 0;
+		while (len < cap - 4000) {
+			len += gen_feed_line(&seed, buf + len);
+			buf[len++] = '\n';
+		}
+		/* A buffer that ends right after the last LF: nothing past
+		 * it may be read (the sanitizer build checks). */
+		ck_assert_ptr_nonnull(exact = malloc(len));
+		memcpy(exact, buf, len);
+		count += feed_and_compare(exact, len, round % 2 ? seed : 0);
+		free(exact);
+	}
+	free(buf);
+	/* About 32,000 lines and 230,000 numbers (the count depends only on
+	 * the seed). */
+	ck_assert_int_gt(count, 200000);
+}
+END_TEST
+
+START_TEST(test_proto_numbers_feed_edges)
+{
+	/* Tokens at the edges of the word-at-a-time path: 15 and 16
+	 * digits (15 is the most it takes), a point at either end, signs,
+	 * tokens across the 64-byte window, lines of 63-97 bytes, and the
+	 * last line ending exactly at the end of the buffer. */
+	static const char *const toks[] = {
+		"999999999999999", "-999999999999999", "+999999999999999",
+		"9999999999999999", ".99999999999999", "99999999999999.",
+		"9.99999999999999", "-.00000000000001", "0.000000000000001",
+		"9007199254740993", "900719925474099.3", "-0", "+0", "0.",
+		".0", "-.0", "1", "-1", "12345678", "123456789", "1234567.8",
+		"12345678.9", "0.12345678", "0.123456789", "1e1", "5.e3",
+		"4.9e-324", "2.2250738585072011e-308", "1.7976931348623157e308",
+	};
+	const size_t nt = sizeof(toks) / sizeof(toks[0]);
+	char line[400], *buf;
+	size_t a, b, pad, n, len;
+	long count = 0;
+
+	for (a = 0; a < nt; a++)
+		for (b = 0; b < nt; b++)
+			for (pad = 0; pad < 70; pad += 3) {
+				n = (size_t)sprintf(line,
+				    "m @1764640000.%03zu%*s %s %s", pad,
+				    (int)pad, "", toks[a], toks[b]);
+				len = n + 1;
+				buf = malloc(len);
+				ck_assert_ptr_nonnull(buf);
+				memcpy(buf, line, n);
+				buf[n] = '\n';
+				count += feed_and_compare(buf, len, 0);
+				free(buf);
+			}
+	ck_assert_int_eq(count, (long)(nt * nt * 24 * 2));
+
+	/* A NUL byte or bad UTF-8 inside a long feed line: the same error
+	 * (nul_byte / bad_utf8, with its byte offset) as the line alone. */
+	{
+		static const char *const bad[] = {
+			"\0", "1\0", "\xff", "2.\xe2\x82", "\xc3\xa9", "\r",
+			"\v",
+		};
+		const size_t bl[] = { 1, 2, 1, 4, 2, 1, 1 };
+		size_t at;
+
+		for (a = 0; a < sizeof(bad) / sizeof(bad[0]); a++)
+			for (at = 0; at < 6; at++) {
+				n = (size_t)sprintf(line, "m @1764640000.5");
+				for (b = 0; b < 8; b++) {
+					line[n++] = ' ';
+					if (b == at) {
+						memcpy(line + n, bad[a], bl[a]);
+						n += bl[a];
+					} else
+						n += (size_t)sprintf(line + n,
+						    "-%zu.25", b);
+				}
+				n += (size_t)sprintf(line + n, " %60s", "7");
+				buf = malloc(n + 1);
+				ck_assert_ptr_nonnull(buf);
+				memcpy(buf, line, n);
+				buf[n] = '\n';
+				(void)feed_and_compare(buf, n + 1, 0);
+				ck_assert_int_eq(msg.kind, PROTO_EMPTY);
+				free(buf);
+			}
+	}
+}
+END_TEST
+
 /* ------------------------------------------------------------------
  * Times.
  */
@@ -1681,6 +2007,8 @@ proto_suite(void)
 	tcase_add_test(tc, test_proto_numbers_random_vs_strtod);
 	tcase_add_test(tc, test_proto_numbers_in_lines_vs_strtod);
 	tcase_add_test(tc, test_proto_numbers_mutated_vs_regex);
+	tcase_add_test(tc, test_proto_numbers_feed_vs_strtod);
+	tcase_add_test(tc, test_proto_numbers_feed_edges);
 	suite_add_tcase(s, tc);
 
 	tc = tcase_create("times");

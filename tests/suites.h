@@ -21,5 +21,6 @@ Suite *torture_suite(void);
 Suite *activate_suite(void);
 Suite *confman_suite(void);
 Suite *persist_suite(void);
+Suite *registry_suite(void);
 
 #endif
