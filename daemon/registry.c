@@ -379,10 +379,22 @@ history_add(struct reg_entry *e, double t)
 	struct model_report rep;
 	double *row;
 	int p = e->m->o.p;
+	uint64_t n = e->m->n_used, ev = e->hist_every;
 
-	if (e->hist_cap == 0 || e->hist_every == 0 ||
-	    e->m->n_used % e->hist_every != 0)
+	if (e->hist_cap == 0 || ev == 0)
 		return;
+	/* A snapshot when n_used is a multiple of hist_every, found
+	 * without a 64-bit division per record: hist_due is the next
+	 * multiple, recomputed only when out of step (a restore, a reset,
+	 * a reload that changed history_every). */
+	if (e->hist_due_every != ev || n > e->hist_due ||
+	    n + ev < e->hist_due) {
+		e->hist_due = n % ev == 0 ? n : n + (ev - n % ev);
+		e->hist_due_every = (uint32_t)ev;
+	}
+	if (n != e->hist_due)
+		return;
+	e->hist_due = n + ev;
 	row = e->hist + (size_t)e->hist_next * (size_t)(3 + p);
 	memset(&rep, 0, sizeof(rep));
 	rep.theta = row + 3;

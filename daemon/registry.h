@@ -36,6 +36,8 @@ struct reg_entry {
 	 * terms). */
 	uint32_t	 hist_cap, hist_len, hist_next, hist_every;
 	double		*hist;
+	uint64_t	 hist_due;	/* next n_used to snapshot at */
+	uint32_t	 hist_due_every;	/* hist_every hist_due was for */
 	uint64_t	 snap_epoch;	/* checkpoint that has this entry */
 };
 

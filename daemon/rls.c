@@ -316,6 +316,8 @@ start_state(struct rls *r, const struct rls_opts *o)
 	r->delta = o->delta;
 	r->regk = o->reg_block > 0 ? o->reg_block : 1;
 	r->nupd = 0;
+	r->regpos = 0;
+	r->regpos_at = 0;
 	r->cyc = 0;
 	memset(r->T, 0, sizeof(double) * (size_t)r->n * (size_t)r->n);
 	memset(r->d, 0, sizeof(double) * (size_t)p);
@@ -551,8 +553,15 @@ update(struct rls *r, const double *phi, double y, double w, double lambda,
 	inv = 1.0 / s;
 
 	/* The regularisation row of this record, if it is a K-th one. */
-	have_reg = r->delta > 0 && lambda < 1 &&
-	    r->nupd % (uint64_t)r->regk == (uint64_t)r->regk - 1;
+	/* Where nupd is in its block of K, kept up to date without a 64-bit
+	 * division per record (one costs as much as the rest of a p = 4
+	 * update): recomputed only after a restore or copy moved nupd. */
+	if (r->regpos_at != r->nupd || r->regk == 1)
+		r->regpos = r->regk == 1 ? 0 :
+		    (int)(r->nupd % (uint64_t)r->regk);
+	have_reg = r->delta > 0 && lambda < 1 && r->regpos == r->regk - 1;
+	r->regpos = r->regpos + 1 == r->regk ? 0 : r->regpos + 1;
+	r->regpos_at = r->nupd + 1;
 	if (have_reg) {
 		double wk = 1 - lambda, g;
 		int i;
@@ -570,7 +579,7 @@ update(struct rls *r, const double *phi, double y, double w, double lambda,
 		reg[c] = g;
 		reg[p] = g * r->theta_ref[c];
 		r->d[c] += g * g;
-		r->cyc = (c + 1) % p;
+		r->cyc = c + 1 == p ? 0 : c + 1;
 	}
 	if (w > 0) {
 		double sw = sqrt(w) * inv;

@@ -55,6 +55,9 @@ struct rls {
 					 * rls_opts, not part of the saved
 					 * state) */
 	uint64_t	 nupd;		/* updates applied */
+	int		 regpos;	/* nupd mod regk when regpos_at == nupd
+					 * (a cache, not saved) */
+	uint64_t	 regpos_at;
 	int		 cyc;		/* next regularised coordinate */
 	double		*T;		/* n*n row-major, upper triangle used */
 	double		*d;		/* p: diag of R, scaled like T^2 */

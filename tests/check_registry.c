@@ -10,6 +10,8 @@
 #include <string.h>
 
 #include "conf.h"
+#include "model.h"
+#include "proto.h"
 #include "registry.h"
 #include "suites.h"
 
@@ -85,6 +87,60 @@ START_TEST(test_registry_lookup_last_entry)
 }
 END_TEST
 
+/* Feed "name x y" with x = i, y = 2 i + 1 (+ a wobble) through the
+ * parser and registry_record. */
+static void
+feed(struct registry *r, const char *name, int from, int n)
+{
+	struct proto_msg msg;
+	struct reg_result res;
+	char line[128];
+	int i;
+
+	for (i = from; i < from + n; i++) {
+		snprintf(line, sizeof(line), "%s %d %g", name, i,
+		    2.0 * i + 1 + (i % 7) * 0.01);
+		ck_assert_int_eq(proto_parse_line(line, strlen(line), 1, &msg),
+		    PROTO_RECORD);
+		memset(&res, 0, sizeof(res));
+		ck_assert_int_eq(registry_record(r, &msg, 1000.0 + i, &res),
+		    0);
+	}
+}
+
+/*
+ * History snapshots fall on every history_every-th used record (n_used a
+ * multiple of it), also after a reset brings n_used back to 0 (the
+ * registry finds the next multiple without a division per record).
+ */
+START_TEST(test_registry_history_every)
+{
+	struct conf *c = conf_of("[daemon]\nhistory = 64\nhistory_every = 3\n"
+	    "[template h*]\nfields = x\ntarget = y\n");
+	struct registry *r = registry_new(c);
+	struct reg_entry *e;
+	char err[160];
+	uint32_t i;
+
+	ck_assert_ptr_nonnull(r);
+	feed(r, "h1", 0, 20);
+	e = get(r, "h1");
+	ck_assert_uint_eq(e->m->n_used, 20);
+	ck_assert_uint_eq(e->hist_len, 6);	/* 3, 6, ..., 18 */
+	for (i = 0; i < e->hist_len; i++)
+		ck_assert_double_eq(registry_hist_get(e, i)[1], 3.0 * (i + 1));
+	ck_assert_int_eq(registry_rebuild(r, e, err, sizeof(err)), 0);
+	e = get(r, "h1");
+	feed(r, "h1", 100, 7);
+	ck_assert_uint_eq(e->m->n_used, 7);
+	/* After the reset: 3 and 6 again. */
+	ck_assert_double_eq(registry_hist_get(e, e->hist_len - 1)[1], 6.0);
+	ck_assert_double_eq(registry_hist_get(e, e->hist_len - 2)[1], 3.0);
+	registry_free(r);
+	conf_free(c);
+}
+END_TEST
+
 Suite *
 registry_suite(void)
 {
@@ -92,6 +148,7 @@ registry_suite(void)
 	TCase *tc = tcase_create("lookup");
 
 	tcase_add_test(tc, test_registry_lookup_last_entry);
+	tcase_add_test(tc, test_registry_history_every);
 	suite_add_tcase(s, tc);
 	return s;
 }
