@@ -151,6 +151,53 @@ update_event(struct cmd_ctx *c, const struct reg_entry *e, double t)
 		c->hooks.broadcast(c->hooks.arg, e, 1, j.buf, j.len);
 }
 
+/* Take s off / put s on the list of sessions that asked for update
+ * events (.watch every=N). */
+static void
+upd_unlink(struct cmd_ctx *c, struct session *s)
+{
+	if (s->watch_every == 0)
+		return;
+	if (s->upd_prev != NULL)
+		s->upd_prev->upd_next = s->upd_next;
+	else
+		c->upd_watch = s->upd_next;
+	if (s->upd_next != NULL)
+		s->upd_next->upd_prev = s->upd_prev;
+	s->upd_prev = s->upd_next = NULL;
+}
+
+static void
+upd_link(struct cmd_ctx *c, struct session *s)
+{
+	if (s->watch_every == 0)
+		return;
+	s->upd_prev = NULL;
+	s->upd_next = c->upd_watch;
+	if (c->upd_watch != NULL)
+		c->upd_watch->upd_prev = s;
+	c->upd_watch = s;
+}
+
+/*
+ * Does any session want an update event for e now (its model or all, and
+ * e's used-record count a multiple of its every=N)? Only then is one
+ * rendered: a watcher of one model no longer makes every record of every
+ * model pay for a report and a JSON line.
+ */
+static int
+upd_wanted(const struct cmd_ctx *c, const struct reg_entry *e)
+{
+	const struct session *s;
+
+	for (s = c->upd_watch; s != NULL; s = s->upd_next)
+		if ((s->watch_model[0] == '\0' ||
+		    strcmp(s->watch_model, e->name) == 0) &&
+		    e->n_updates % s->watch_every == 0)
+			return 1;
+	return 0;
+}
+
 static int
 do_record(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
     double now, struct json *j)
@@ -185,8 +232,8 @@ do_record(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
 	}
 	if (res.events != 0)
 		alarm_events(c, res.entry, res.events, res.t);
-	if (res.kind == REG_USED && c->st.watchers > 0 &&
-	    c->hooks.broadcast != NULL)
+	if (res.kind == REG_USED && c->upd_watch != NULL &&
+	    c->hooks.broadcast != NULL && upd_wanted(c, res.entry))
 		update_event(c, res.entry, res.t);
 	return 0;
 }
@@ -530,11 +577,14 @@ cmd_watch(struct cmd_ctx *c, struct session *s, const struct proto_msg *msg,
 		return 0;
 	if (!s->watching)
 		c->st.watchers++;
+	else
+		upd_unlink(c, s);
 	s->watching = 1;
 	s->watch_every = msg->every;
 	s->watch_model[0] = '\0';
 	if (msg->model.len > 0)
 		str_arg(&msg->model, s->watch_model, sizeof(s->watch_model));
+	upd_link(c, s);
 	ok_reply(j, "watch", NULL, msg->line);
 	json_key(j, "model");
 	json_str(j, s->watch_model[0] ? s->watch_model : "*");
@@ -791,5 +841,8 @@ cmd_session_closed(struct cmd_ctx *c, struct session *s)
 {
 	if (s->watching && c->st.watchers > 0)
 		c->st.watchers--;
+	if (s->watching)
+		upd_unlink(c, s);
 	s->watching = 0;
+	s->watch_every = 0;
 }

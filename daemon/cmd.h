@@ -70,6 +70,7 @@ struct cmd_ctx {
 	struct cmd_hooks hooks;
 	const char	*token;		/* shared token for TCP writers */
 	double		 started;	/* Unix time the daemon started */
+	struct session	*upd_watch;	/* sessions with .watch every=N */
 	const char	*version;
 };
 

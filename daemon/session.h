@@ -31,6 +31,8 @@ struct session {
 	int		 watching;	/* .watch active */
 	char		 watch_model[MODEL_NAME_MAX + 1];	/* "" = all */
 	uint32_t	 watch_every;	/* also every Nth update (0 = off) */
+	/* The command layer's list of sessions with watch_every > 0. */
+	struct session	*upd_prev, *upd_next;
 	int		 close_after;	/* .bye: close once replies are out */
 	int		 wait_kind;	/* reply deferred: CMD_WAIT_*, 0 none */
 	uint64_t	 wait_ticket;	/* what the deferred reply waits for */

@@ -112,6 +112,49 @@ check ".open of a name no section makes: unknown_model" \
 check "  and nothing is created" \
     [ "$(jget "$(printf '%s\n' "$r" | sed -n 2p)" '"nosuch" in [m["model"] for m in d["models"]]')" = False ]
 
+# .watch NAME every=N: update events for that model only, at multiples of
+# N used records; the same connection re-watching "*" every=3 gets both
+# models at multiples of 3 (the watch list is per session, replaced).
+# Two fresh models of the template, records on the true line.
+r=$("$PY" - "$SOCK" <<'PYEOF'
+import json, socket, sys, time
+def conn():
+    s = socket.socket(socket.AF_UNIX); s.connect(sys.argv[1]); return s
+def lines(s, t):
+    s.settimeout(0.2); buf = b""; end = time.time() + t
+    while time.time() < end:
+        try:
+            d = s.recv(65536)
+        except socket.timeout:
+            continue
+        if not d:
+            break
+        buf += d
+    return [json.loads(l) for l in buf.decode().splitlines() if l]
+w, f = conn(), conn()
+w.sendall(b".watch flow_7 every=2\n")
+lines(w, 0.3)
+recs = "".join("flow_%d %r %r %r\n" % (m, 0.4 + 1.02 * (9.0 + i) - 0.06
+               + 0.01 * (i % 3), 9.0 + i, 20.0 + i % 5)
+               for i in range(20) for m in (7, 8))
+f.sendall(recs.encode() + b".sync\n")
+lines(f, 0.5)
+ev = [e for e in lines(w, 0.5) if e.get("event") == "update"]
+a = len(ev) == 10 and all(e["model"] == "flow_7" and e["n"] % 2 == 0
+                          for e in ev)
+w.sendall(b".watch * every=3\n")
+lines(w, 0.3)
+f.sendall(recs.encode() + b".sync\n")
+lines(f, 0.5)
+ev = [e for e in lines(w, 0.5) if e.get("event") == "update"]
+b = {e["model"] for e in ev} == {"flow_7", "flow_8"} and \
+    all(e["n"] % 3 == 0 for e in ev) and len(ev) > 0
+print(a, b)
+PYEOF
+)
+check ".watch flow_7 every=2: only flow_7, at even record counts" [ "${r% *}" = True ]
+check "  re-watch * every=3 on the same connection: both models, multiples of 3" [ "${r#* }" = True ]
+
 # SIGHUP with a changed config: the model keeps its state, new settings
 # apply; a broken config is logged and the old one kept.
 sed 's/^memory = 1$/memory = 0.999/' "$TMP/a.conf" >"$TMP/b.conf"
