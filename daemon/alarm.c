@@ -194,10 +194,16 @@ alarm_step(struct alarm *a, const struct alarm_opts *o,
 	if (!alarm_armed(a, o))
 		return 0;
 
-	z = fmax(-o->gate_z, fmin(o->gate_z, in->z));
-	a->cusum_pos = fmax(0, a->cusum_pos + z - o->cusum_k);
-	a->cusum_neg = fmax(0, a->cusum_neg - z - o->cusum_k);
-	m = fmax(a->cusum_pos, a->cusum_neg);
+	/* Plain comparisons, not fmin/fmax (library calls at -O2, 7% of
+	 * this function's instructions): nothing here is NaN, and the
+	 * clamps at 0 give +0, as fmax(0, x) does. */
+	z = in->z < o->gate_z ? in->z : o->gate_z;
+	z = z > -o->gate_z ? z : -o->gate_z;
+	m = a->cusum_pos + z - o->cusum_k;
+	a->cusum_pos = m > 0 ? m : 0;
+	m = a->cusum_neg - z - o->cusum_k;
+	a->cusum_neg = m > 0 ? m : 0;
+	m = a->cusum_pos > a->cusum_neg ? a->cusum_pos : a->cusum_neg;
 	a->st[ALARM_CUSUM].value = m;
 	if (m > o->cusum_h) {
 		ev |= set_state(a, ALARM_CUSUM, 1, in->t);

@@ -413,8 +413,11 @@ model_step(struct model *m, const double *phi, double y, double w,
 		 * (e / sqrt(f))^2 and clip both squares at ERR_SQ_MAX. The
 		 * statistics then say "garbage" (R^2 far below 0) while
 		 * staying finite, and the detectors keep working. */
-		double ec = fmin(fabs(out->e), ERR_ABS_MAX);
-		double u = fmin(fabs(out->e) / sqrt(f), ERR_ABS_MAX);
+		double ec = fabs(out->e), u = ec / sqrt(f);
+
+		/* Neither is NaN here: plain comparisons, not fmin calls. */
+		ec = ec < ERR_ABS_MAX ? ec : ERR_ABS_MAX;
+		u = u < ERR_ABS_MAX ? u : ERR_ABS_MAX;
 
 		/* One-step-ahead sums start after the warm-up (a burn-in): the
 		 * first errors after a diffuse start say nothing about the

@@ -502,7 +502,8 @@ update(struct rls *r, const double *phi, double y, double w, double lambda,
 	double s, inv;
 	int j, c = 0, p = r->p, n = r->n, have_reg;
 
-	for (j = 0; j < p; j++)
+	/* rls_apriori checked this phi already when it gave vap. */
+	for (j = 0; vap == NULL && j < p; j++)
 		if (!finite_bounded(phi[j]))
 			return E_NUMERIC;
 	if (!finite_bounded(y))
@@ -606,9 +607,10 @@ rls_update(struct rls *r, const double *phi, double y, double w,
 
 /*
  * rls_update_ap: rls_update for the phi that a came from, reusing the
- * forward substitution rls_apriori(r, phi, a) did. a must have been taken
- * on r with no state change since (it records r and its update count and
- * is ignored otherwise). Same results and errors as rls_update.
+ * forward substitution (and the range check of phi) rls_apriori(r, phi, a)
+ * did. a must have been taken on r, with this phi, and no state change
+ * since (it records r and its update count and is ignored otherwise).
+ * Same results and errors as rls_update.
  */
 int
 rls_update_ap(struct rls *r, const struct rls_apriori *a, const double *phi,
