@@ -116,6 +116,11 @@ void	 persist_cache_free(struct persist_cache *c);
 int	 persist_model_decode_cached(const uint8_t *buf, size_t len,
 	    struct persist_cache *c, struct reg_entry **out, char *errbuf,
 	    size_t errlen);
+/* persist_model_decode_checked: the same for a block persist_model_check
+ * just passed (blocklen bytes): its CRC is not computed again. */
+int	 persist_model_decode_checked(const uint8_t *buf, size_t blocklen,
+	    struct persist_cache *c, struct reg_entry **out, char *errbuf,
+	    size_t errlen);
 /* persist_model_peek_name: the name a (maybe damaged) block starts with. */
 int	 persist_model_peek_name(const uint8_t *buf, size_t len, char *name);
 /* persist_resync: next offset >= from holding a valid block or trailer. */

@@ -9,18 +9,21 @@
  * daemon-level alarm with retries on disk errors. Not pure (libuv, files,
  * clocks, logging); the byte formats are persist.c's.
  */
-#define _GNU_SOURCE	/* flock, fdatasync, O_DIRECTORY with -std=gnu11 */
+#define _GNU_SOURCE	/* flock, fdatasync, O_DIRECTORY, SCHED_IDLE, gettid */
 #include <dirent.h>
 #include <errno.h>
 #include <fcntl.h>
 #include <inttypes.h>
 #include <math.h>
+#include <pthread.h>
+#include <sched.h>
 #include <stdarg.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 #include <sys/file.h>
 #include <sys/mman.h>
+#include <sys/resource.h>
 #include <sys/stat.h>
 #include <time.h>
 #include <unistd.h>
@@ -37,6 +40,8 @@
 #define JNL_NAME_LEN	(sizeof(JNL_PREFIX) - 1 + 16)
 #define ASIDE_DIR	"damaged"
 #define CHUNK_SIZE	(4u << 20)	/* checkpoint write unit */
+#define CHUNKS_AHEAD	4u	/* unwritten chunks before encoding waits;
+				 * also the chunks kept for the next one */
 #define SLICE_NS	1000000u	/* encode budget per loop turn */
 #define JBUF_SIZE	65536u		/* first journal buffer */
 #define JOURNAL_BACKLOG_MAX (64u << 20)	/* unwritten journal bytes kept */
@@ -77,15 +82,38 @@ struct jwork {
 };
 
 struct cwork {
-	uv_work_t	 req;
+	uv_work_t	 req;		/* on the pool (final checkpoint only) */
 	struct state	*st;
 	struct chunk	*list;
 	int		 first, last, abort;
+	int		 pool;		/* runs on the pool, not the writer */
 	uint64_t	 del_lo, del_hi;	/* segments to delete after */
 	size_t		 bytes;
 	int		 err;
 	const char	*what;
 	uint64_t	 ns;		/* time spent in the worker */
+};
+
+/*
+ * The checkpoint writer: a thread of its own at the lowest CPU priority
+ * (SCHED_IDLE, else nice 19), so that the loop thread, woken by a client,
+ * takes the CPU from it at once. Not the libuv pool: a pool thread cannot
+ * get its priority back without CAP_SYS_NICE, and journal writes run
+ * there. One job at a time (struct cwork); completion comes back to the
+ * loop through async. The final checkpoint at shutdown goes to the pool
+ * at normal priority instead: nothing is served then, and a busy machine
+ * must not hold the stop for long.
+ */
+struct cwriter {
+	pthread_t	 thr;
+	int		 started;	/* thr must be joined */
+	pthread_mutex_t	 mu;
+	pthread_cond_t	 cv;
+	struct cwork	*job;		/* handed over, not taken yet */
+	struct cwork	*done;		/* finished, not collected yet */
+	int		 quit;
+	const char	*prio;		/* the priority it got (set by it) */
+	uv_async_t	 async;
 };
 
 /* The checkpoint being taken. */
@@ -109,6 +137,9 @@ struct ckpt {
 	uint64_t	 nenc;
 	size_t		 bytes;
 	struct chunk	*head, *tail;	/* not yet handed to the writer */
+	unsigned	 nchunks;	/* chunks not written yet */
+	int		 waiting;	/* encoding waits for the writer */
+	unsigned	 waits;
 	uint64_t	 t0, stall_ns, slice_max_ns, encode_ns, write_ns;
 	uint64_t	 slice_cpu_max_ns;	/* the same in thread CPU time */
 	unsigned	 slices;
@@ -120,7 +151,8 @@ struct ckpt_stats {
 	size_t		 bytes;
 	double		 ms, stall_ms, slice_max_ms, encode_ms, write_ms;
 	double		 slice_cpu_max_ms;
-	unsigned	 slices;
+	unsigned	 slices, waits;
+	const char	*writer;	/* where it was written */
 };
 
 struct state {
@@ -165,6 +197,9 @@ struct state {
 	/* Checkpoints. */
 	struct ckpt	 ck;
 	struct cwork	 cw;
+	struct cwriter	 wr;
+	struct chunk	*spare;		/* chunks kept for reuse */
+	unsigned	 nspare;
 	int		 ck_fd;		/* worker side */
 	uint64_t	 ck_gen;	/* last generation started */
 	uint64_t	 ck_done_gen;	/* last finished, well or not */
@@ -540,7 +575,7 @@ load_blocks(struct rctx *rc, struct persist_cache *pc, char *errbuf,
 		r = persist_model_check(b, left, &bl);
 		if (r == 0) {
 			nblocks++;
-			r = persist_model_decode_cached(b, bl, pc, &e, err,
+			r = persist_model_decode_checked(b, bl, pc, &e, err,
 			    sizeof(err));
 			if (r == E_NOMEM) {
 				unmap_file(&mf);
@@ -1519,6 +1554,44 @@ chunks_free(struct chunk *c)
 	}
 }
 
+/* A chunk of at least cap bytes: a kept one when it is big enough (its
+ * pages are already mapped: no page faults on the loop), else a new one. */
+static struct chunk *
+chunk_get(struct state *st, size_t cap)
+{
+	struct chunk *c = st->spare;
+
+	if (c != NULL && c->cap >= cap) {
+		st->spare = c->next;
+		st->nspare--;
+		c->next = NULL;
+		c->len = 0;
+		return c;
+	}
+	return chunk_new(cap > CHUNK_SIZE ? cap : CHUNK_SIZE);
+}
+
+/* The chunks of list are written or dropped: keep up to CHUNKS_AHEAD of
+ * the standard size for the next checkpoint, free the rest. */
+static void
+chunks_put(struct state *st, struct chunk *list)
+{
+	struct chunk *c, *next;
+
+	for (c = list; c != NULL; c = next) {
+		next = c->next;
+		if (st->ck.nchunks > 0)
+			st->ck.nchunks--;
+		if (c->cap == CHUNK_SIZE && st->nspare < CHUNKS_AHEAD) {
+			c->next = st->spare;
+			st->spare = c;
+			st->nspare++;
+		} else {
+			free(c);
+		}
+	}
+}
+
 /* Room for n bytes at the end of the checkpoint's chunk list. */
 static uint8_t *
 ck_room(struct state *st, size_t n)
@@ -1526,13 +1599,14 @@ ck_room(struct state *st, size_t n)
 	struct chunk *c = st->ck.tail;
 
 	if (c == NULL || c->cap - c->len < n) {
-		if ((c = chunk_new(n > CHUNK_SIZE ? n : CHUNK_SIZE)) == NULL)
+		if ((c = chunk_get(st, n)) == NULL)
 			return NULL;
 		if (st->ck.tail != NULL)
 			st->ck.tail->next = c;
 		else
 			st->ck.head = c;
 		st->ck.tail = c;
+		st->ck.nchunks++;
 	}
 	return c->data + c->len;
 }
@@ -1577,6 +1651,7 @@ stop_encoding(struct state *st)
 	if (!st->ck.encoding)
 		return;
 	st->ck.encoding = 0;
+	st->ck.waiting = 0;
 	registry_snap_end(st->reg);
 	free(st->ck.ents);
 	st->ck.ents = NULL;
@@ -1585,6 +1660,8 @@ stop_encoding(struct state *st)
 
 static void ckpt_finish(struct state *st, int ok);
 static void cwork_after(uv_work_t *req, int status);
+static void idle_cb(uv_idle_t *h);
+static int writer_submit(struct state *st, struct cwork *w);
 
 /* Worker: append chunks to models.ckpt.tmp; at the end fsync, rename over
  * models.ckpt, fsync the directory, delete the covered segments. */
@@ -1653,6 +1730,119 @@ out:
 	w->ns = uv_hrtime() - t0;
 }
 
+/* The writer thread's priority: SCHED_IDLE, else nice 19 on this thread
+ * alone (Linux: setpriority on a thread id); NULL when neither was
+ * allowed (it then runs at the daemon's priority). */
+static const char *
+writer_lower(void)
+{
+	struct sched_param sp;
+
+	memset(&sp, 0, sizeof(sp));
+	if (pthread_setschedparam(pthread_self(), SCHED_IDLE, &sp) == 0)
+		return "idle";
+	if (setpriority(PRIO_PROCESS, (id_t)gettid(), 19) == 0)
+		return "nice 19";
+	return NULL;
+}
+
+static void *
+writer_main(void *arg)
+{
+	struct cwriter *wr = arg;
+	struct cwork *w;
+	const char *prio = writer_lower();
+
+	pthread_mutex_lock(&wr->mu);
+	wr->prio = prio;
+	for (;;) {
+		while (wr->job == NULL && !wr->quit)
+			pthread_cond_wait(&wr->cv, &wr->mu);
+		if (wr->job == NULL)
+			break;
+		w = wr->job;
+		wr->job = NULL;
+		pthread_mutex_unlock(&wr->mu);
+		cwork_cb(&w->req);
+		pthread_mutex_lock(&wr->mu);
+		wr->done = w;
+		/* Cannot fail on an open handle; the loop closes it only
+		 * after joining this thread. */
+		uv_async_send(&wr->async);
+	}
+	pthread_mutex_unlock(&wr->mu);
+	return NULL;
+}
+
+/* The loop side: a finished job comes back. */
+static void
+writer_async_cb(uv_async_t *h)
+{
+	struct state *st = h->data;
+	struct cwork *w;
+
+	pthread_mutex_lock(&st->wr.mu);
+	w = st->wr.done;
+	st->wr.done = NULL;
+	pthread_mutex_unlock(&st->wr.mu);
+	if (w != NULL)
+		cwork_after(&w->req, 0);
+}
+
+/* Hand w to the writer thread (one job at a time: st->ck.writing). */
+static int
+writer_submit(struct state *st, struct cwork *w)
+{
+	if (!st->wr.started)
+		return UV_EINVAL;
+	pthread_mutex_lock(&st->wr.mu);
+	st->wr.job = w;
+	pthread_cond_signal(&st->wr.cv);
+	pthread_mutex_unlock(&st->wr.mu);
+	return 0;
+}
+
+/* Start the writer thread (its async handle is already initialised).
+ * 0, or an errno value. */
+static int
+writer_start(struct state *st)
+{
+	int rc;
+
+	if ((rc = pthread_mutex_init(&st->wr.mu, NULL)) != 0)
+		return rc;
+	if ((rc = pthread_cond_init(&st->wr.cv, NULL)) != 0) {
+		pthread_mutex_destroy(&st->wr.mu);
+		return rc;
+	}
+	if ((rc = pthread_create(&st->wr.thr, NULL, writer_main,
+	    &st->wr)) != 0) {
+		pthread_cond_destroy(&st->wr.cv);
+		pthread_mutex_destroy(&st->wr.mu);
+		return rc;
+	}
+	st->wr.started = 1;
+	return 0;
+}
+
+/* Stop and join the writer thread; a job it is running is finished first
+ * (a write cannot be cut in the middle), one not taken yet is not run. */
+static void
+writer_stop(struct state *st)
+{
+	if (!st->wr.started)
+		return;
+	pthread_mutex_lock(&st->wr.mu);
+	st->wr.quit = 1;
+	st->wr.job = NULL;
+	pthread_cond_signal(&st->wr.cv);
+	pthread_mutex_unlock(&st->wr.mu);
+	pthread_join(st->wr.thr, NULL);
+	pthread_cond_destroy(&st->wr.cv);
+	pthread_mutex_destroy(&st->wr.mu);
+	st->wr.started = 0;
+}
+
 /* Give the writer what is ready: full chunks while encoding, the rest at
  * the end; or clean up after a failure. */
 static void
@@ -1691,11 +1881,16 @@ ckpt_kick(struct state *st)
 	w->del_lo = st->ck.seg_lo;
 	w->del_hi = st->ck.seq;
 	w->req.data = w;
-	if ((rc = uv_queue_work(st->loop, &w->req, cwork_cb,
-	    cwork_after)) != 0) {
-		chunks_free(list);
-		snprintf(st->ck.err, sizeof(st->ck.err), "uv_queue_work: %s",
-		    uv_strerror(rc));
+	w->pool = st->ck.final;
+	if (w->pool)
+		rc = uv_queue_work(st->loop, &w->req, cwork_cb, cwork_after);
+	else
+		rc = writer_submit(st, w);
+	if (rc != 0) {
+		w->list = NULL;
+		chunks_put(st, list);
+		snprintf(st->ck.err, sizeof(st->ck.err), "%s: %s", w->pool ?
+		    "uv_queue_work" : "checkpoint writer", uv_strerror(rc));
 		st->ck.failed = 1;
 		stop_encoding(st);
 		ckpt_finish(st, 0);
@@ -1710,7 +1905,7 @@ ckpt_abort(struct state *st)
 {
 	st->ck.failed = 1;
 	stop_encoding(st);
-	chunks_free(st->ck.head);
+	chunks_put(st, st->ck.head);
 	st->ck.head = st->ck.tail = NULL;
 	ckpt_kick(st);
 }
@@ -1722,7 +1917,8 @@ cwork_after(uv_work_t *req, int status)
 	struct state *st = w->st;
 
 	st->ck.writing = 0;
-	chunks_free(w->list);
+	chunks_put(st, w->list);
+	w->list = NULL;
 	st->ck.write_ns += w->ns;
 	if (status != 0 && w->err == 0) {
 		w->err = ECANCELED;
@@ -1740,15 +1936,21 @@ cwork_after(uv_work_t *req, int status)
 	}
 	if (st->ck.failed) {
 		stop_encoding(st);
-		chunks_free(st->ck.head);
+		chunks_put(st, st->ck.head);
 		st->ck.head = st->ck.tail = NULL;
 		ckpt_kick(st);
 		return;
 	}
-	if (w->last)
+	if (w->last) {
 		ckpt_finish(st, 1);
-	else
-		ckpt_kick(st);
+		return;
+	}
+	/* Room again: encoding goes on. */
+	if (st->ck.waiting && st->ck.nchunks <= CHUNKS_AHEAD) {
+		st->ck.waiting = 0;
+		uv_idle_start(&st->idle, idle_cb);
+	}
+	ckpt_kick(st);
 }
 
 /* The snapshot has every entry: append the trailer, end the epoch. */
@@ -1767,7 +1969,12 @@ encode_finish(struct state *st)
 	stop_encoding(st);
 }
 
-/* One slice of encoding per loop turn, about SLICE_NS long. */
+/*
+ * One slice of encoding per loop turn, about SLICE_NS long. When more than
+ * CHUNKS_AHEAD chunks wait for the writer, encoding waits too (the idle
+ * handle stops; cwork_after starts it again): the encoder would only run
+ * ahead of the disk into memory, and the kept chunks are reused.
+ */
 static void
 idle_cb(uv_idle_t *h)
 {
@@ -1782,7 +1989,8 @@ idle_cb(uv_idle_t *h)
 			ckpt_abort(st);
 			return;
 		}
-		if ((++k & 31) == 0 && uv_hrtime() - t0 >= SLICE_NS)
+		if ((++k & 31) == 0 && (uv_hrtime() - t0 >= SLICE_NS ||
+		    st->ck.nchunks > CHUNKS_AHEAD))
 			break;
 	}
 	if (st->ck.encoding && st->ck.next == st->ck.nents)
@@ -1796,6 +2004,12 @@ idle_cb(uv_idle_t *h)
 	if (dt > st->ck.slice_cpu_max_ns)
 		st->ck.slice_cpu_max_ns = dt;
 	ckpt_kick(st);
+	if (st->ck.encoding && st->ck.writing &&
+	    st->ck.nchunks > CHUNKS_AHEAD) {
+		st->ck.waiting = 1;
+		st->ck.waits++;
+		uv_idle_stop(&st->idle);
+	}
 }
 
 /*
@@ -1876,7 +2090,7 @@ ckpt_finish(struct state *st, int ok)
 	struct ckpt_stats *ls = &st->last;
 
 	stop_encoding(st);
-	chunks_free(st->ck.head);
+	chunks_put(st, st->ck.head);
 	st->ck.head = st->ck.tail = NULL;
 	st->ck.active = 0;
 	st->ck_done_gen = st->ck.gen;
@@ -1903,6 +2117,9 @@ ckpt_finish(struct state *st, int ok)
 		ls->encode_ms = (double)st->ck.encode_ns / 1e6;
 		ls->write_ms = (double)st->ck.write_ns / 1e6;
 		ls->slices = st->ck.slices;
+		ls->waits = st->ck.waits;
+		ls->writer = st->ck.final ? "pool" : st->wr.prio != NULL ?
+		    st->wr.prio : "normal";
 		log_info("state %s: checkpoint %" PRIu64 " written: %" PRIu64
 		    " models, %zu bytes, %.1f ms (start %.3f ms, %u slices, "
 		    "longest %.3f ms, writer %.1f ms)", st->dir, st->ck.gen,
@@ -2028,13 +2245,16 @@ init_handles(struct state *st)
 	    (rc = uv_timer_init(st->loop, &st->j_timer)) != 0 ||
 	    (rc = uv_timer_init(st->loop, &st->j_retry)) != 0 ||
 	    (rc = uv_idle_init(st->loop, &st->idle)) != 0 ||
-	    (rc = uv_check_init(st->loop, &st->check)) != 0)
+	    (rc = uv_check_init(st->loop, &st->check)) != 0 ||
+	    (rc = uv_async_init(st->loop, &st->wr.async,
+	    writer_async_cb)) != 0)
 		return rc;
 	st->ck_timer.data = st->ck_retry.data = st;
 	st->j_timer.data = st->j_retry.data = st;
 	st->idle.data = st;
 	st->check.data = st;
-	st->handles = 6;
+	st->wr.async.data = st;
+	st->handles = 7;
 	return 0;
 }
 
@@ -2114,6 +2334,12 @@ state_open(uv_loop_t *loop, const struct state_opts *o, struct registry *reg,
 	/* Segments could not all be replayed: this run's first segment must
 	 * not be replayed on top of the old checkpoint either. */
 	st->jgap = rc.jstop;
+	if ((r = writer_start(st)) != 0) {
+		err_printf(errbuf, errlen, "state: cannot start the checkpoint "
+		    "writer: %s", strerror(r));
+		r = r == ENOMEM || r == EAGAIN ? E_NOMEM : E_IO;
+		goto fail;
+	}
 	if ((r = init_handles(st)) != 0) {
 		err_printf(errbuf, errlen, "state: %s", uv_strerror(r));
 		r = E_IO;
@@ -2129,6 +2355,7 @@ state_open(uv_loop_t *loop, const struct state_opts *o, struct registry *reg,
 	*out = st;
 	return 0;
 fail:
+	writer_stop(st);
 	if (st->dirfd >= 0)
 		close(st->dirfd);
 	free(st->dir);
@@ -2352,6 +2579,10 @@ state_stats(const struct state *st, struct json *j)
 		json_num(j, ls->encode_ms);
 		json_key(j, "write_ms");
 		json_num(j, ls->write_ms);
+		json_key(j, "writer_waits");
+		json_uint(j, ls->waits);
+		json_key(j, "writer");
+		json_str(j, ls->writer);
 		json_obj_end(j);
 	}
 	json_key(j, "restore");
@@ -2426,6 +2657,9 @@ shutdown_step(struct state *st)
 	uv_close((uv_handle_t *)&st->j_retry, handle_closed);
 	uv_close((uv_handle_t *)&st->idle, handle_closed);
 	uv_close((uv_handle_t *)&st->check, handle_closed);
+	/* No checkpoint is running: the writer waits idle. */
+	writer_stop(st);
+	uv_close((uv_handle_t *)&st->wr.async, handle_closed);
 }
 
 /*
@@ -2466,7 +2700,12 @@ state_free(struct state *st)
 		next = b->next;
 		jbuf_free(b);
 	}
+	/* Joined here when the daemon stops without state_shutdown (a
+	 * start that failed); a job in flight then ends first. */
+	writer_stop(st);
+	chunks_free(st->cw.list);
 	chunks_free(st->ck.head);
+	chunks_free(st->spare);
 	free(st->ck.ents);
 	if (st->jfd >= 0)
 		close(st->jfd);

@@ -651,6 +651,48 @@ START_TEST(test_persist_share_restore)
 }
 END_TEST
 
+/* A block that persist_model_check passed decodes through
+ * persist_model_decode_checked bit for bit as through the decoder that
+ * checks the CRC itself (issue #8, 2026-12-02: restore computed it
+ * twice); a length that is not the framed one is refused, not read past. */
+START_TEST(test_persist_decode_checked)
+{
+	static const char *names[] = { "t_fit", "lag_primed", "calib" };
+	struct conf *c;
+	struct registry *r = every_state(&c);
+	struct persist_cache *pc;
+	struct reg_entry *d;
+	uint8_t *b;
+	size_t len, bl, i;
+	char err[200];
+
+	ck_assert_ptr_nonnull(pc = persist_cache_new());
+	for (i = 0; i < 3; i++) {
+		b = encode(get(r, names[i]), &len);
+		ck_assert_int_eq(persist_model_check(b, len, &bl), 0);
+		ck_assert_uint_eq(bl, len);
+		ck_assert_int_eq(persist_model_decode_checked(b, bl, pc, &d,
+		    err, sizeof(err)), 0);
+		same_entry(get(r, names[i]), d);
+		registry_entry_free(d);
+		ck_assert_int_eq(persist_model_decode_checked(b, bl - 1, pc,
+		    &d, err, sizeof(err)), E_CORRUPT);
+		ck_assert_ptr_null(d);
+		ck_assert_int_eq(persist_model_decode_checked(b, 8, pc, &d,
+		    err, sizeof(err)), E_CORRUPT);
+		ck_assert_ptr_null(d);
+		b[0] ^= 1;	/* the magic is still checked */
+		ck_assert_int_eq(persist_model_decode_checked(b, bl, pc, &d,
+		    err, sizeof(err)), E_CORRUPT);
+		ck_assert_ptr_null(d);
+		free(b);
+	}
+	persist_cache_free(pc);
+	registry_free(r);
+	conf_free(c);
+}
+END_TEST
+
 /* ---- corruption ---- */
 
 static uint8_t *
@@ -1204,6 +1246,7 @@ persist_suite(void)
 	tcase_add_test(tc, test_persist_share_section);
 	tcase_add_test(tc, test_persist_share_reload);
 	tcase_add_test(tc, test_persist_share_restore);
+	tcase_add_test(tc, test_persist_decode_checked);
 	suite_add_tcase(s, tc);
 	tc = tcase_create("corruption");
 	tcase_add_test(tc, test_persist_every_bit_flip_detected);
