@@ -9,14 +9,13 @@
  * daemon-level alarm with retries on disk errors. Not pure (libuv, files,
  * clocks, logging); the byte formats are persist.c's.
  */
-#define _GNU_SOURCE	/* flock, fdatasync, O_DIRECTORY, SCHED_IDLE, gettid */
+#define _GNU_SOURCE	/* flock, fdatasync, O_DIRECTORY, gettid */
 #include <dirent.h>
 #include <errno.h>
 #include <fcntl.h>
 #include <inttypes.h>
 #include <math.h>
 #include <pthread.h>
-#include <sched.h>
 #include <stdarg.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -94,10 +93,12 @@ struct cwork {
 	uint64_t	 ns;		/* time spent in the worker */
 };
 
+#define WRITER_NICE	10	/* see writer_lower */
+
 /*
- * The checkpoint writer: a thread of its own at the lowest CPU priority
- * (SCHED_IDLE, else nice 19), so that the loop thread, woken by a client,
- * takes the CPU from it at once. Not the libuv pool: a pool thread cannot
+ * The checkpoint writer: a thread of its own at a low CPU priority
+ * (nice 10), so that the loop thread, woken by a client, takes the CPU
+ * from it. Not the libuv pool: a pool thread cannot
  * get its priority back without CAP_SYS_NICE, and journal writes run
  * there. One job at a time (struct cwork); completion comes back to the
  * loop through async. The final checkpoint at shutdown goes to the pool
@@ -1730,19 +1731,17 @@ out:
 	w->ns = uv_hrtime() - t0;
 }
 
-/* The writer thread's priority: SCHED_IDLE, else nice 19 on this thread
- * alone (Linux: setpriority on a thread id); NULL when neither was
- * allowed (it then runs at the daemon's priority). */
+/* The writer thread's priority: nice 10 on this thread alone (Linux:
+ * setpriority on a thread id); NULL when that was refused (it then runs
+ * at the daemon's priority). Not SCHED_IDLE nor nice 19: on a machine
+ * kept busy by other work an idle-class thread may not run at all and
+ * checkpoints would stop; at nice 10 it still gets about a tenth of a
+ * busy CPU against a nice-0 thread (CFS weights 110 and 1024). */
 static const char *
 writer_lower(void)
 {
-	struct sched_param sp;
-
-	memset(&sp, 0, sizeof(sp));
-	if (pthread_setschedparam(pthread_self(), SCHED_IDLE, &sp) == 0)
-		return "idle";
-	if (setpriority(PRIO_PROCESS, (id_t)gettid(), 19) == 0)
-		return "nice 19";
+	if (setpriority(PRIO_PROCESS, (id_t)gettid(), WRITER_NICE) == 0)
+		return "nice 10";
 	return NULL;
 }
 
