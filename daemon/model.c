@@ -56,12 +56,13 @@ static int
 check_record(const struct model *m, const double *v, int n, double y,
     double w, double t)
 {
-	int j;
+	int j, ok = 1;
 
+	/* |v| <= max is false for a NaN and for an infinity: the test of
+	 * finite_bounded in one comparison, without a branch per value. */
 	for (j = 0; j < n; j++)
-		if (!finite_bounded(v[j]))
-			return E_NUMERIC;
-	if (!finite_bounded(y))
+		ok &= fabs(v[j]) <= RLS_VALUE_MAX;
+	if (!ok || !finite_bounded(y))
 		return E_NUMERIC;
 	if (!(w >= 0) || !(w <= RLS_VALUE_MAX))
 		return E_ARG;
