@@ -1488,6 +1488,21 @@ jcrc_hw(const uint8_t *e, size_t plen)
 }
 #endif
 
+/* The payload of any valid entry by jentry_body (plen bytes at p); kept
+ * out of line so that the record path needs no writer on its stack. */
+__attribute__((noinline))
+static void
+jentry_body_at(const struct persist_jentry *je, uint8_t *p, size_t plen)
+{
+	struct wr w;
+
+	w.buf = p;
+	w.cap = plen;
+	w.n = 0;
+	w.bad = 0;
+	jentry_body(&w, je);
+}
+
 /* CRC-32C of the entry at e: bytes 0..3, then the payload. */
 static uint32_t
 jcrc(const uint8_t *e, size_t plen)
@@ -1510,7 +1525,6 @@ int
 persist_jentry_encode(const struct persist_jentry *je, uint8_t *out,
     size_t len)
 {
-	struct wr w;
 	size_t plen;
 
 	if (!jentry_valid(je))
@@ -1518,15 +1532,10 @@ persist_jentry_encode(const struct persist_jentry *je, uint8_t *out,
 	plen = jentry_plen(je);
 	if (len != PERSIST_JENT_HDR_LEN + plen)
 		return E_ARG;
-	if (HOST_IS_LE && je->type == PERSIST_J_RECORD) {
+	if (HOST_IS_LE && je->type == PERSIST_J_RECORD)
 		jrecord_put(je, out + PERSIST_JENT_HDR_LEN);
-	} else {
-		w.buf = out + PERSIST_JENT_HDR_LEN;
-		w.cap = plen;
-		w.n = 0;
-		w.bad = 0;
-		jentry_body(&w, je);
-	}
+	else
+		jentry_body_at(je, out + PERSIST_JENT_HDR_LEN, plen);
 	wr_u32_at(out, (uint32_t)plen);
 	wr_u32_at(out + 4, jcrc(out, plen));
 	return 0;

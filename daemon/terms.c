@@ -1393,14 +1393,16 @@ part(const struct terms_form *fm, const double *c, const double *s, int j,
  * eval for a linear form (fm->linear): phi_j = u_f for term j's field f,
  * or 1 for the constant. The numbers are part()'s: its product 1.0 * u
  * is u exactly, and u is the same (x - c) / s, or x without constants.
+ * The sum of u * 0 is 0 while every u is finite and NaN once one is
+ * infinite or NaN: one test at the end instead of one per term.
  */
 static int
 eval_linear(const struct terms_form *fm, const double *c, const double *s,
     const double *x, double *phi)
 {
 	const int *lin = fm->lin;
-	double u;
-	int j, f, ok = 1;
+	double u, z = 0.0;
+	int j, f;
 
 	for (j = 0; j < fm->p; j++) {
 		f = lin[j];
@@ -1411,9 +1413,9 @@ eval_linear(const struct terms_form *fm, const double *c, const double *s,
 		else
 			u = (x[f] - c[f]) / s[f];
 		phi[j] = u;
-		ok &= isfinite(u) != 0;
+		z += u * 0.0;
 	}
-	return ok ? 0 : E_NUMERIC;
+	return z == 0.0 ? 0 : E_NUMERIC;
 }
 
 static int
@@ -1476,6 +1478,8 @@ terms_ingest(const struct terms *t, const double *x, const double *xprev,
 	const double *c = t->scaling_set ? t->centre : NULL, *s = t->scale;
 	int j, rc;
 
+	if (fm->linear)
+		return eval_linear(fm, c, s, x, phi);
 	if (!fm->uses_prev)
 		return eval(t, x, xprev, phi, 1);
 	if (xprev == NULL) {
