@@ -43,6 +43,8 @@
 				 * also the chunks kept for the next one */
 #define SLICE_NS	1000000u	/* encode budget per loop turn */
 #define JBUF_SIZE	65536u		/* first journal buffer */
+#define JSPARE_MAX	2		/* written buffers kept for reuse */
+#define JSPARE_CAP_MAX	(8u << 20)	/* larger ones are freed */
 #define JOURNAL_BACKLOG_MAX (64u << 20)	/* unwritten journal bytes kept */
 #define RETRY_MIN_MS	250u
 #define RETRY_MAX_MS	5000u	/* a full disk is retried at least every 5 s */
@@ -174,6 +176,8 @@ struct state {
 	int		 jgap;		/* the next segment follows a gap */
 	struct jbuf	*jhead, *jtail;
 	size_t		 jqueued;	/* bytes in jhead.. */
+	struct jbuf	*jspare;	/* written buffers to reuse */
+	unsigned	 njspare;
 	uint64_t	 appended;	/* tickets handed out */
 	uint64_t	 durable;	/* tickets safe: see set_durable */
 	uint64_t	 written;	/* tickets whose journal write succeeded */
@@ -1130,6 +1134,61 @@ jbuf_free(struct jbuf *b)
 	free(b);
 }
 
+/*
+ * A buffer for segment seq with room for n bytes: a spare one when one is
+ * large enough, else a new one of at least JBUF_SIZE. Reusing the written
+ * buffers keeps their pages mapped: freeing and allocating them again
+ * costs a page fault per page on both threads at every write.
+ */
+static struct jbuf *
+jbuf_get(struct state *st, uint64_t seq, unsigned flags, size_t n)
+{
+	struct jbuf *b, **pp;
+
+	for (pp = &st->jspare; (b = *pp) != NULL; pp = &b->next)
+		if (b->cap >= n)
+			break;
+	if (b == NULL)
+		return jbuf_new(seq, flags, n > JBUF_SIZE ? n : JBUF_SIZE);
+	*pp = b->next;
+	st->njspare--;
+	b->next = NULL;
+	b->seq = seq;
+	b->flags = flags;
+	b->upto = 0;
+	b->len = 0;
+	return b;
+}
+
+/* Done with b: keep it as a spare (the JSPARE_MAX largest) or free it. */
+static void
+jbuf_put(struct state *st, struct jbuf *b)
+{
+	struct jbuf *s, **pp, **small;
+
+	if (b->cap < JBUF_SIZE || b->cap > JSPARE_CAP_MAX) {
+		jbuf_free(b);
+		return;
+	}
+	if (st->njspare >= JSPARE_MAX) {
+		small = &st->jspare;
+		for (pp = &st->jspare; *pp != NULL; pp = &(*pp)->next)
+			if ((*pp)->cap < (*small)->cap)
+				small = pp;
+		if ((*small)->cap >= b->cap) {
+			jbuf_free(b);
+			return;
+		}
+		s = *small;
+		*small = s->next;
+		jbuf_free(s);
+		st->njspare--;
+	}
+	b->next = st->jspare;
+	st->jspare = b;
+	st->njspare++;
+}
+
 static void
 jqueue(struct state *st, struct jbuf *b)
 {
@@ -1158,7 +1217,7 @@ jprune(struct state *st)
 		else
 			st->jhead = next;
 		st->jqueued -= b->len;
-		jbuf_free(b);
+		jbuf_put(st, b);
 	}
 	st->jtail = prev;
 	if (st->jhead == NULL) {
@@ -1180,7 +1239,7 @@ jdrop(struct state *st, const char *why)
 
 	for (b = st->jhead; b != NULL; b = next) {
 		next = b->next;
-		jbuf_free(b);
+		jbuf_put(st, b);
 	}
 	st->jhead = st->jtail = NULL;
 	st->jqueued = 0;
@@ -1207,8 +1266,7 @@ jroom(struct state *st, size_t n)
 	size_t cap;
 
 	if (b == NULL || b->seq != st->jseq || (b->flags & JB_CLOSE)) {
-		if ((b = jbuf_new(st->jseq, 0, n > JBUF_SIZE ? n :
-		    JBUF_SIZE)) == NULL)
+		if ((b = jbuf_get(st, st->jseq, 0, n)) == NULL)
 			return NULL;
 		jqueue(st, b);
 		return b;
@@ -1414,7 +1472,7 @@ jwork_after(uv_work_t *req, int status)
 	if (status == 0 && w->err == 0) {
 		for (b = w->list; b != NULL; b = next) {
 			next = b->next;
-			jbuf_free(b);
+			jbuf_put(st, b);
 		}
 		if (w->upto > st->written)
 			st->written = w->upto;
@@ -1500,7 +1558,8 @@ jrotate(struct state *st, int final)
 	je.text = st->conf_text != NULL ? st->conf_text : "";
 	je.textlen = st->conf_len;
 	n = PERSIST_JNL_HDR_LEN + persist_jentry_size(&je);
-	if ((b = jbuf_new(seq, JB_OPEN | (st->jgap ? JB_GAP : 0), n)) ==
+	/* The records that follow fill the same buffer. */
+	if ((b = jbuf_get(st, seq, JB_OPEN | (st->jgap ? JB_GAP : 0), n)) ==
 	    NULL) {
 		jdrop(st, "out of memory");
 		return seq;
@@ -2696,6 +2755,10 @@ state_free(struct state *st)
 	if (st == NULL)
 		return;
 	for (b = st->jhead; b != NULL; b = next) {
+		next = b->next;
+		jbuf_free(b);
+	}
+	for (b = st->jspare; b != NULL; b = next) {
 		next = b->next;
 		jbuf_free(b);
 	}

@@ -38,6 +38,11 @@ struct terms_form {
 	int		 intercept;	/* 1: coefficient 0 is 1 */
 	int		 p;		/* coefficients */
 	int		 uses_prev;
+	/* 1 when every term is the constant or one plain field to the
+	 * power 1 (no prev()): then lin[j] is term j's field, or -1 for
+	 * the constant, and eval takes a loop without factor lists. */
+	int		 linear;
+	int		*lin;		/* p */
 	unsigned char	*exps;		/* p x nvars exponent rows */
 	int		*fac_off;	/* p + 1: term j has factors */
 	int		*fac_var;	/*   fac_off[j] .. fac_off[j+1]-1 */
@@ -809,6 +814,7 @@ form_free(struct terms_form *fm)
 	if (fm == NULL)
 		return;
 	free(fm->exps);
+	free(fm->lin);
 	free(fm->fac_off);
 	free(fm->fac_var);
 	free(fm->fac_exp);
@@ -969,7 +975,8 @@ terms_parse(const char *text, const char *const *fields, int nfields,
 	    (fm->work = calloc(nv > (size_t)fm->p ? nv : (size_t)fm->p,
 	    sizeof(double))) == NULL ||
 	    (fm->text = calloc((size_t)fm->p, sizeof(char *))) == NULL ||
-	    (fm->col_off = calloc((size_t)fm->p + 1, sizeof(int))) == NULL)
+	    (fm->col_off = calloc((size_t)fm->p + 1, sizeof(int))) == NULL ||
+	    (fm->lin = calloc((size_t)fm->p, sizeof(int))) == NULL)
 		goto fail;
 	for (f = 0; f < nfields; f++)
 		memcpy(fm->names[f], fields[f], strlen(fields[f]) + 1);
@@ -988,6 +995,17 @@ terms_parse(const char *text, const char *const *fields, int nfields,
 		}
 	}
 	fm->fac_off[fm->p] = q;
+	fm->linear = 1;
+	for (j = 0; j < fm->p; j++) {
+		q = fm->fac_off[j];
+		if (fm->fac_off[j + 1] == q)
+			fm->lin[j] = -1;
+		else if (fm->fac_off[j + 1] == q + 1 && fm->fac_exp[q] == 1 &&
+		    fm->fac_var[q] < nfields)
+			fm->lin[j] = fm->fac_var[q];
+		else
+			fm->linear = 0;
+	}
 
 	/* Display texts in one buffer, and the list without the intercept
 	 * ("t1, t2, ..."), which terms_parse reads back as the same set. */
@@ -1371,6 +1389,35 @@ part(const struct terms_form *fm, const double *c, const double *s, int j,
 	return r;
 }
 
+/*
+ * eval for a linear form (fm->linear): phi_j = u_f for term j's field f,
+ * or 1 for the constant. The numbers are part()'s: its product 1.0 * u
+ * is u exactly, and u is the same (x - c) / s, or x without constants.
+ * The sum of u * 0 is 0 while every u is finite and NaN once one is
+ * infinite or NaN: one test at the end instead of one per term.
+ */
+static int
+eval_linear(const struct terms_form *fm, const double *c, const double *s,
+    const double *x, double *phi)
+{
+	const int *lin = fm->lin;
+	double u, z = 0.0;
+	int j, f;
+
+	for (j = 0; j < fm->p; j++) {
+		f = lin[j];
+		if (f < 0)
+			u = 1.0;
+		else if (c == NULL)
+			u = x[f];
+		else
+			u = (x[f] - c[f]) / s[f];
+		phi[j] = u;
+		z += u * 0.0;
+	}
+	return z == 0.0 ? 0 : E_NUMERIC;
+}
+
 static int
 eval(const struct terms *t, const double *x, const double *xprev,
     double *phi, int scaled)
@@ -1380,6 +1427,8 @@ eval(const struct terms *t, const double *x, const double *xprev,
 	const double *s = t->scale;
 	int j;
 
+	if (fm->linear)
+		return eval_linear(fm, c, s, x, phi);
 	if (fm->uses_prev && xprev == NULL)
 		return E_STATE;
 	for (j = 0; j < fm->p; j++) {
@@ -1429,6 +1478,8 @@ terms_ingest(const struct terms *t, const double *x, const double *xprev,
 	const double *c = t->scaling_set ? t->centre : NULL, *s = t->scale;
 	int j, rc;
 
+	if (fm->linear)
+		return eval_linear(fm, c, s, x, phi);
 	if (!fm->uses_prev)
 		return eval(t, x, xprev, phi, 1);
 	if (xprev == NULL) {

@@ -7,6 +7,7 @@
  * "Applied Regression Analysis", ch. 3).
  */
 #include <check.h>
+#include <float.h>
 #include <math.h>
 #include <stdlib.h>
 #include <string.h>
@@ -85,6 +86,80 @@ START_TEST(test_model_transactional)
 	ck_assert_uint_eq(m->n_seen, 100);
 	model_free(m);
 	model_free(c);
+}
+END_TEST
+
+/*
+ * Issue #8 (2026-12-02): the value checks of model_step and model_ingest
+ * test two values at a time. Every field and regressor must still be a
+ * finite number within +-1e100 (the bound of model.h; IEEE 754-2008 5.11:
+ * every ordered comparison with a NaN is false). A bad value at any
+ * position of 1..9 values (pairs and a lone tail) is refused and the model
+ * not touched; the bounds themselves and -0.0 are accepted.
+ */
+START_TEST(test_model_value_bounds)
+{
+	static const char *const fields[] = { "a", "b", "c", "d", "e", "f",
+	    "g", "h", "i", "y" };
+	static const char *const lists[] = { "a", "a, b", "a, b, c",
+	    "a, b, c, d", "a, b, c, d, e", "a, b, c, d, e, f",
+	    "a, b, c, d, e, f, g", "a, b, c, d, e, f, g, h",
+	    "a, b, c, d, e, f, g, h, i" };
+	const double bad[] = { NAN, -NAN, INFINITY, -INFINITY, DBL_MAX,
+	    nextafter(1e100, INFINITY), -nextafter(1e100, INFINITY) };
+	const double good[] = { 1e100, -1e100, -0.0, 4.9e-324 };
+	const char *fl[10];
+	double v[10];
+	struct terms *t;
+	struct model *m;
+	char eb[128];
+	int n, j, k, p;
+
+	for (n = 1; n <= 9; n++) {
+		/* model_step: n regressors, intercept first. */
+		p = n;
+		for (k = 0; k < (int)(sizeof(bad) / sizeof(bad[0])); k++)
+			for (j = 0; j < p; j++) {
+				m = new_model(p, 0.99, INFINITY);
+				ck_assert_ptr_nonnull(m);
+				for (int i = 0; i < p; i++)
+					v[i] = i + 1;
+				v[j] = bad[k];
+				ck_assert_int_eq(model_step(m, v, 1, 1, 0,
+				    NULL), E_NUMERIC);
+				ck_assert_uint_eq(m->n_seen, 0);
+				model_free(m);
+			}
+		for (k = 0; k < (int)(sizeof(good) / sizeof(good[0])); k++) {
+			m = new_model(p, 0.99, INFINITY);
+			ck_assert_ptr_nonnull(m);
+			for (j = 0; j < p; j++)
+				v[j] = good[k];
+			ck_assert_int_eq(model_step(m, v, 1, 1, 0, NULL), 0);
+			ck_assert_uint_eq(m->n_seen, 1);
+			model_free(m);
+		}
+		/* model_ingest: n raw fields, each a term, and the target y
+		 * last (checked as the target, not as a field). */
+		for (k = 0; k < (int)(sizeof(bad) / sizeof(bad[0])); k++)
+			for (j = 0; j < n; j++) {
+				memcpy(fl, fields, sizeof(fl));
+				fl[n] = "y";
+				ck_assert_msg(terms_parse(lists[n - 1], fl,
+				    n + 1, n, 1, &t, eb, sizeof(eb)) == 0,
+				    "%s", eb);
+				m = new_model(terms_p(t), 0.99, INFINITY);
+				ck_assert_ptr_nonnull(m);
+				ck_assert_int_eq(model_set_terms(m, t, 0), 0);
+				for (int i = 0; i <= n; i++)
+					v[i] = i + 1;
+				v[j] = bad[k];
+				ck_assert_int_eq(model_ingest(m, v, 1, 1, 0,
+				    NULL), E_NUMERIC);
+				ck_assert_uint_eq(m->n_seen, 0);
+				model_free(m);
+			}
+	}
 }
 END_TEST
 
@@ -425,6 +500,7 @@ model_suite(void)
 
 	tcase_set_timeout(tc, 60);
 	tcase_add_test(tc, test_model_transactional);
+	tcase_add_test(tc, test_model_value_bounds);
 	tcase_add_test(tc, test_model_matches_ols_and_interval);
 	tcase_add_test(tc, test_model_frozen);
 	tcase_add_test(tc, test_model_time_constant);

@@ -1018,6 +1018,140 @@ START_TEST(test_persist_jentry_roundtrip)
 }
 END_TEST
 
+/*
+ * The journal entry layout written out from the tables in daemon/STATE.md
+ * ("Journal segments"), one byte at a time with shifts, and its CRC by
+ * the bitwise definition (crc_bitwise above): the reference for
+ * test_persist_jentry_layout. Returns the framed length.
+ */
+static size_t
+ref_le(uint8_t *b, uint64_t v, int nbytes)
+{
+	int i;
+
+	for (i = 0; i < nbytes; i++)
+		b[i] = (uint8_t)(v >> (8 * i));
+	return (size_t)nbytes;
+}
+
+static size_t
+ref_jentry(const struct persist_jentry *je, uint8_t *out)
+{
+	uint8_t *p = out + 8, *crcin;
+	uint64_t bits;
+	size_t plen, i;
+	int k;
+
+	*p++ = (uint8_t)je->type;
+	if (je->type == PERSIST_J_CONF || je->type == PERSIST_J_RELOAD) {
+		p += ref_le(p, je->textlen, 4);
+		memcpy(p, je->text, je->textlen);
+		p += je->textlen;
+	} else {
+		*p++ = (uint8_t)je->namelen;		/* str8 */
+		memcpy(p, je->name, je->namelen);
+		p += je->namelen;
+		if (je->type == PERSIST_J_RECORD ||
+		    je->type == PERSIST_J_PIN) {
+			memcpy(&bits, &je->t, 8);
+			p += ref_le(p, bits, 8);
+		}
+		if (je->type == PERSIST_J_RECORD) {
+			p += ref_le(p, (uint64_t)je->nx, 2);
+			for (k = 0; k < je->nx; k++) {
+				memcpy(&bits, &je->x[k], 8);
+				p += ref_le(p, bits, 8);
+			}
+		}
+		if (je->type == PERSIST_J_FREEZE)
+			*p++ = je->on != 0;
+	}
+	plen = (size_t)(p - (out + 8));
+	ref_le(out, plen, 4);
+	/* CRC-32C of bytes 0..3 followed by the payload. */
+	crcin = malloc(4 + plen);
+	ck_assert_ptr_nonnull(crcin);
+	memcpy(crcin, out, 4);
+	for (i = 0; i < plen; i++)
+		crcin[4 + i] = out[8 + i];
+	ref_le(out + 4, crc_bitwise(crcin, 4 + plen), 4);
+	free(crcin);
+	return 8 + plen;
+}
+
+/* Issue #8 (2026-12-02): the journal encoder stores records field by
+ * field without the generic writer and computes the CRC in one pass. Its
+ * bytes must stay the documented format: 6000 random entries of every
+ * type (names of 1..64 bytes, 1..257 values with random bit patterns,
+ * NaNs and infinities included, texts of 0..299 bytes), at alignments
+ * 0..7 of the output, against ref_jentry. */
+START_TEST(test_persist_jentry_layout)
+{
+	static const enum persist_jtype types[] = { PERSIST_J_CONF,
+	    PERSIST_J_RELOAD, PERSIST_J_RECORD, PERSIST_J_PIN,
+	    PERSIST_J_FREEZE, PERSIST_J_RESET };
+	static uint8_t got[8 + 2 + MODEL_NAME_MAX + 8 + 2 +
+	    8 * (PROTO_MAX_VALUES + 1) + 8];
+	static uint8_t want[sizeof(got)];
+	double x[PROTO_MAX_VALUES + 1];
+	char name[MODEL_NAME_MAX], text[300];
+	struct persist_jentry je;
+	struct rng g;
+	uint64_t bits;
+	size_t n, k, al;
+	int i, j, bad;
+
+	rng_seed(&g, 8);
+	for (i = 0; i < 6000; i++) {
+		memset(&je, 0, sizeof(je));
+		je.type = types[i % 6];
+		je.namelen = 1 + rng_next(&g) % MODEL_NAME_MAX;
+		for (k = 0; k < je.namelen; k++)
+			name[k] = (char)(1 + rng_next(&g) % 255);
+		je.name = name;
+		je.textlen = rng_next(&g) % sizeof(text);
+		for (k = 0; k < je.textlen; k++)
+			text[k] = (char)rng_next(&g);
+		je.text = text;
+		bits = rng_next(&g);
+		memcpy(&je.t, &bits, 8);
+		/* Small counts are the common case; the cap is reached too. */
+		je.nx = i % 7 == 0 ? PROTO_MAX_VALUES + 1 :
+		    1 + (int)(rng_next(&g) % (i % 2 ? 17 : PROTO_MAX_VALUES));
+		for (j = 0; j < je.nx; j++) {
+			bits = rng_next(&g);
+			if (j % 5 == 1)
+				x[j] = rng_norm(&g);
+			else
+				memcpy(&x[j], &bits, 8);
+		}
+		x[0] = i % 3 == 0 ? NAN : i % 3 == 1 ? -INFINITY : x[0];
+		je.x = x;
+		je.on = (int)(rng_next(&g) % 3);
+		n = ref_jentry(&je, want);
+		ck_assert_uint_eq(persist_jentry_size(&je), n);
+		al = (size_t)i % 8;
+		memset(got, 0xa5, sizeof(got));
+		ck_assert_int_eq(persist_jentry_encode(&je, got + al, n), 0);
+		ck_assert_msg(memcmp(got + al, want, n) == 0,
+		    "entry %d (type %d, %zu bytes) differs", i, je.type, n);
+		/* Nothing written outside the entry. */
+		for (k = 0, bad = 0; k < sizeof(got); k++)
+			bad |= (k < al || k >= al + n) && got[k] != 0xa5;
+		ck_assert_msg(!bad, "entry %d: bytes outside written", i);
+		/* A wrong length is refused and writes nothing. */
+		memset(got, 0xa5, sizeof(got));
+		ck_assert_int_eq(persist_jentry_encode(&je, got, n - 1),
+		    E_ARG);
+		ck_assert_int_eq(persist_jentry_encode(&je, got, n + 1),
+		    E_ARG);
+		for (k = 0, bad = 0; k < sizeof(got); k++)
+			bad |= got[k] != 0xa5;
+		ck_assert_msg(!bad, "entry %d: a refused encode wrote", i);
+	}
+}
+END_TEST
+
 /* A journal captured from the registry's hook, replayed into a fresh
  * registry (configs, records, pin, freeze, thaw, reset, reload) gives
  * every model bit for bit: the engine is deterministic. */
@@ -1257,6 +1391,7 @@ persist_suite(void)
 	suite_add_tcase(s, tc);
 	tc = tcase_create("journal");
 	tcase_add_test(tc, test_persist_jentry_roundtrip);
+	tcase_add_test(tc, test_persist_jentry_layout);
 	tcase_add_test(tc, test_persist_journal_replay_exact);
 	tcase_add_test(tc, test_persist_snapshot_touch);
 	suite_add_tcase(s, tc);

@@ -838,6 +838,83 @@ START_TEST(test_terms_nonfinite)
 }
 END_TEST
 
+/*
+ * Issue #8 (2026-12-02): a term list of plain fields takes a loop without
+ * factor lists. Its regressors must be the numbers of the general path
+ * bit for bit (the daemon's coefficients are compared bit for bit with
+ * `coefctl fit`), and the definition u = (x - c) / s of daemon/TERMS.md:
+ * the same fields with one square added take the general path and are
+ * the reference, over 2000 random records with and without constants,
+ * overflow to infinity and NaN in a used and an unused field included.
+ */
+START_TEST(test_terms_linear_same_bits)
+{
+	double x[5], phi[6], ref[7], c[5], s[5], u;
+	struct terms *lin, *gen;
+	int map[6], i, j, k, rl, rg, scaled, icpt;
+
+	srand(8);
+	for (scaled = 0; scaled < 2; scaled++) {
+		for (icpt = 0; icpt < 2; icpt++) {
+			lin = parse_ok("d, a, c, b", F5, 5, 4, icpt);
+			gen = parse_ok("a, b, c, d, a^2", F5, 5, 4, icpt);
+			ck_assert_int_eq(terms_p(lin), 4 + icpt);
+			for (j = 0; j < terms_p(lin); j++) {
+				for (k = 0; k < terms_p(gen); k++)
+					if (strcmp(terms_text(gen, k),
+					    terms_text(lin, j)) == 0)
+						break;
+				ck_assert_int_lt(k, terms_p(gen));
+				map[j] = k;
+			}
+			/* Centring needs the constant term (TERMS.md);
+			 * the unused target keeps centre 0. */
+			for (j = 0; j < 5; j++) {
+				c[j] = icpt && j < 4 ? urand(-5, 5) : 0.0;
+				s[j] = j == 2 ? 1e-300 : urand(0.1, 10);
+			}
+			if (scaled) {
+				ck_assert_int_eq(terms_set_scaling(lin, c, s),
+				    0);
+				ck_assert_int_eq(terms_set_scaling(gen, c, s),
+				    0);
+			}
+			for (i = 0; i < 2000; i++) {
+				for (j = 0; j < 5; j++)
+					x[j] = urand(-100, 100);
+				if (i % 50 == 1)
+					x[i % 4] = NAN;
+				if (i % 50 == 2)
+					x[4] = NAN;	/* the target: unused */
+				if (i % 50 == 3)
+					x[2] = 1e100;	/* / 1e-300: inf */
+				if (i % 50 == 4)
+					x[1] = -INFINITY;
+				rl = terms_ingest(lin, x, NULL, phi);
+				rg = terms_ingest(gen, x, NULL, ref);
+				ck_assert_int_eq(rl, rg);
+				ck_assert_int_eq(terms_eval(lin, x, NULL, phi),
+				    rl);
+				if (rl != 0)
+					continue;
+				for (j = 0; j < terms_p(lin); j++) {
+					ck_assert(memcmp(&phi[j],
+					    &ref[map[j]], 8) == 0);
+					k = strcmp(terms_text(lin, j),
+					    "intercept") == 0 ? -1 :
+					    terms_text(lin, j)[0] - 'a';
+					u = k < 0 ? 1.0 : scaled ?
+					    (x[k] - c[k]) / s[k] : x[k];
+					ck_assert(memcmp(&phi[j], &u, 8) == 0);
+				}
+			}
+			terms_free(lin);
+			terms_free(gen);
+		}
+	}
+}
+END_TEST
+
 /* ---- prev() and the first record ---- */
 
 /* The model-side rule of daemon/TERMS.md, written out for the tests. */
@@ -1232,6 +1309,7 @@ terms_suite(void)
 	tc = tcase_create("eval");
 	tcase_add_test(tc, test_terms_eval_values);
 	tcase_add_test(tc, test_terms_nonfinite);
+	tcase_add_test(tc, test_terms_linear_same_bits);
 	suite_add_tcase(s, tc);
 
 	tc = tcase_create("prev");
