@@ -594,9 +594,10 @@ update(struct rls *r, const double *phi, double y, double w, double lambda,
  * K-th update also adds a regularisation row as described at the top of
  * this file. Returns E_NUMERIC for non-finite or out-of-range values and
  * E_ARG for a bad weight or lambda; on error the state is bit-for-bit
- * unchanged. Cost: about 3p^2/2 multiply-adds for the forward
- * substitution and the rotations, p + 1 square roots and divisions that
- * do not wait for each other (rotate_fast); no allocation.
+ * unchanged. Cost: p + 1 sequential Givens rotations, about 2p^2
+ * multiply-adds and a chain of p + 1 square roots and divisions (the
+ * regularisation row, when due, in the same pass); no allocation.
+ * rls_update_ap after rls_apriori takes the fast path instead.
  */
 int
 rls_update(struct rls *r, const double *phi, double y, double w,
