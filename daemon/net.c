@@ -13,7 +13,8 @@
  * phase of the current loop iteration, so a pipelined writer cannot hold
  * the loop (libuv would otherwise read up to 32 buffers in a row from it,
  * 2 MiB, tens of milliseconds of records) while a query waits on another
- * connection.
+ * connection. Likewise at most NET_ACCEPT_BUDGET connections are accepted
+ * per turn; the next waits in its listener for the check phase.
  */
 #define _GNU_SOURCE	/* struct ucred, SO_PEERCRED */
 #include <arpa/inet.h>
@@ -40,6 +41,11 @@
  * max_connections; 128 refused most of a burst of 1000. */
 #define NET_BACKLOG	4096
 #define NET_READ_BUDGET	NET_READ_BUF	/* bytes per connection per loop turn */
+/* Connections accepted per loop turn before the listeners wait for the
+ * check phase: libuv accepts until the backlog is empty, and a client
+ * opening thousands of connections kept it there (a query stalled 0.4 to
+ * 1.8 s in t_adversarial's connection flood). */
+#define NET_ACCEPT_BUDGET	64
 
 struct conn;
 
@@ -103,8 +109,12 @@ struct net {
 	struct uid_count *uids;		/* open Unix connections per peer
 					 * uid, sorted by uid */
 	size_t		 nuids, capuids;
-	uv_check_t	 resume;	/* restarts yielded connections */
+	uv_check_t	 resume;	/* restarts yielded connections and
+					 * held listeners */
 	unsigned	 nyielded;
+	unsigned	 accepts;	/* since the last check phase */
+	uv_stream_t	*held[2];	/* listeners with a connection waiting
+					 * for the check phase */
 	struct net_stats st;
 	char		 rbuf[NET_READ_BUF];
 	char		 ubuf[NET_READ_BUF];
@@ -128,6 +138,7 @@ static void read_cb(uv_stream_t *s, ssize_t nread, const uv_buf_t *buf);
 static void alloc_cb(uv_handle_t *h, size_t suggested, uv_buf_t *buf);
 static void maybe_done(struct net *n);
 static void resume_cb(uv_check_t *h);
+static void on_connection(uv_stream_t *server, int status);
 
 static uint64_t
 now_ms(const struct net *n)
@@ -400,7 +411,7 @@ resume_cb(uv_check_t *h)
 {
 	struct net *n = h->data;
 	struct conn *c;
-	int rc;
+	int i, rc;
 
 	for (c = n->conns; c != NULL; c = c->next) {
 		if (!c->yielded)
@@ -417,6 +428,15 @@ resume_cb(uv_check_t *h)
 		}
 	}
 	n->nyielded = 0;
+	n->accepts = 0;
+	for (i = 0; i < 2; i++) {
+		uv_stream_t *l = n->held[i];
+
+		n->held[i] = NULL;
+		/* Accepting the waiting connection restarts the listener. */
+		if (l != NULL && !uv_is_closing((uv_handle_t *)l))
+			on_connection(l, 0);
+	}
 	uv_check_stop(h);
 }
 
@@ -679,6 +699,16 @@ on_connection(uv_stream_t *server, int status)
 		log_warnx("accept: %s", uv_strerror(status));
 		return;
 	}
+	/* Over this turn's budget: leave the connection in the listener
+	 * (libuv stops polling it until it is accepted) and accept it in
+	 * the check phase, after the other connections' input. */
+	if (n->accepts >= NET_ACCEPT_BUDGET) {
+		n->held[is_unix ? 0 : 1] = server;
+		if (n->nyielded == 0)
+			uv_check_start(&n->resume, resume_cb);
+		return;
+	}
+	n->accepts++;
 	if ((c = calloc(1, sizeof(*c))) == NULL) {
 		log_warnx("accept: out of memory");
 		return;
