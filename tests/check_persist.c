@@ -28,17 +28,6 @@
 
 /* ---- helpers ---- */
 
-static struct conf *
-parse(const char *text)
-{
-	struct conf_error ce;
-	struct conf *c = NULL;
-
-	memset(&ce, 0, sizeof(ce));
-	ck_assert_msg(conf_parse(text, strlen(text), &c, &ce) == 0,
-	    "config line %d: %s", ce.line, ce.msg);
-	return c;
-}
 
 /* Raw values (fields then target) through the registry, as a record. */
 static int
@@ -297,7 +286,7 @@ static struct registry *
 every_state(struct conf **cp)
 {
 	struct registry *r;
-	struct conf *c = parse(conf_text);
+	struct conf *c = test_conf(conf_text);
 	struct reg_entry *e;
 	struct rng g;
 	double t = 1.7e9, x[3];
@@ -504,7 +493,7 @@ START_TEST(test_persist_roundtrip_stale_orphan)
 	int kept, stale, orphan;
 
 	r = every_state(&c);
-	c2 = parse("[template t_*]\nfields = a b\ntarget = y\n"
+	c2 = test_conf("[template t_*]\nfields = a b\ntarget = y\n"
 	    "terms = a, b, a*b\n"
 	    "[template lag_*]\nfields = raw\ntarget = ref\n"
 	    "terms = raw, prev(raw), prev(ref)\nmemory = 0.5\n");
@@ -535,7 +524,7 @@ END_TEST
  * the field names; a model of another section does not. */
 START_TEST(test_persist_share_section)
 {
-	struct conf *c = parse("[daemon]\nhistory = 0\n"
+	struct conf *c = test_conf("[daemon]\nhistory = 0\n"
 	    "[template a_*]\nfields = u v\ntarget = y\nterms = u, v, u*v\n"
 	    "[template b_*]\nfields = u v\ntarget = y\n");
 	struct registry *r = registry_new(c);
@@ -562,9 +551,9 @@ END_TEST
  * created without. */
 START_TEST(test_persist_share_reload)
 {
-	struct conf *c1 = parse("[daemon]\nhistory = 4\n"
+	struct conf *c1 = test_conf("[daemon]\nhistory = 4\n"
 	    "[template a_*]\nfields = u v\ntarget = y\n");
-	struct conf *c2 = parse("[daemon]\nhistory = 4\n"
+	struct conf *c2 = test_conf("[daemon]\nhistory = 4\n"
 	    "[template a_*]\nfields = u v\ntarget = y\nterms = u, v, u^2\n");
 	struct conf *c3;
 	struct registry *r = registry_new(c1);
@@ -598,7 +587,7 @@ START_TEST(test_persist_share_reload)
 	ck_assert_str_eq(a1->fields[0], "u");
 
 	/* Same shape, new settings: kept, tolerance storage allocated. */
-	c3 = parse("[daemon]\nhistory = 4\n"
+	c3 = test_conf("[daemon]\nhistory = 4\n"
 	    "[template a_*]\nfields = u v\ntarget = y\nterms = u, v, u^2\n"
 	    "tolerance = - 0.5 - 0.25\n");
 	ck_assert_ptr_null(a3->m->o.tol_abs);
@@ -698,7 +687,7 @@ END_TEST
 static uint8_t *
 small_block(size_t *len, struct registry **rp, struct conf **cp)
 {
-	struct conf *c = parse("[daemon]\nhistory = 0\n"
+	struct conf *c = test_conf("[daemon]\nhistory = 0\n"
 	    "[template s_*]\nfields = a\ntarget = y\n");
 	struct registry *r = registry_new(c);
 	double x[2];
@@ -1203,7 +1192,7 @@ START_TEST(test_persist_journal_replay_exact)
 	struct persist_jentry je;
 	struct capture cp = { NULL, 0, 0 };
 	struct registry *live, *rep;
-	struct conf *c1 = parse(conf_text), *c2 = parse(conf2), *cs[4];
+	struct conf *c1 = test_conf(conf_text), *c2 = test_conf(conf2), *cs[4];
 	struct conf_error ce;
 	struct reg_entry *ents[32];
 	double t = 1.7e9, xb[PROTO_MAX_VALUES + 1];
@@ -1319,7 +1308,7 @@ START_TEST(test_persist_snapshot_touch)
 	struct registry_hooks h;
 	struct touched tc;
 	struct registry *r;
-	struct conf *c = parse(conf_text);
+	struct conf *c = test_conf(conf_text);
 	struct reg_entry *a, *b;
 	struct rng g;
 	double t = 1.7e9;

@@ -14,18 +14,8 @@
 #include "proto.h"
 #include "registry.h"
 #include "suites.h"
+#include "testutil.h"
 
-static struct conf *
-conf_of(const char *text)
-{
-	struct conf_error ce;
-	struct conf *c = NULL;
-
-	memset(&ce, 0, sizeof(ce));
-	ck_assert_msg(conf_parse(text, strlen(text), &c, &ce) == 0,
-	    "config line %d: %s", ce.line, ce.msg);
-	return c;
-}
 
 static struct reg_entry *
 get(struct registry *r, const char *name)
@@ -44,7 +34,7 @@ START_TEST(test_registry_lookup_last_entry)
 	static const char *const names[] = {
 		"m", "ma", "mab", "m", "mab", "ma", "ma", "m-1", "m", "mb",
 	};
-	struct conf *c = conf_of("[template m*]\nfields = x\ntarget = y\n");
+	struct conf *c = test_conf("[template m*]\nfields = x\ntarget = y\n");
 	struct registry *r = registry_new(c);
 	struct reg_result res;
 	struct reg_entry *e;
@@ -115,7 +105,7 @@ feed(struct registry *r, const char *name, int from, int n)
  */
 START_TEST(test_registry_history_every)
 {
-	struct conf *c = conf_of("[daemon]\nhistory = 64\nhistory_every = 3\n"
+	struct conf *c = test_conf("[daemon]\nhistory = 64\nhistory_every = 3\n"
 	    "[template h*]\nfields = x\ntarget = y\n");
 	struct registry *r = registry_new(c);
 	struct reg_entry *e;

@@ -1,15 +1,31 @@
 /* SPDX-License-Identifier: ISC */
 /*
- * testutil: PRNG, normal variates, LRE and the LAPACK least-squares oracle
- * used by the unit tests. Tests may allocate; the engine may not.
+ * testutil: PRNG, normal variates, LRE, the LAPACK least-squares oracle
+ * and a configuration-parsing wrapper used by the unit tests. Tests may
+ * allocate; the engine may not.
  */
+#include <check.h>
 #include <math.h>
 #include <stdlib.h>
 #include <string.h>
 
 #include <lapacke.h>
 
+#include "conf.h"
 #include "testutil.h"
+
+/* test_conf: parse text; fails the running test if it is refused. */
+struct conf *
+test_conf(const char *text)
+{
+	struct conf_error ce;
+	struct conf *c = NULL;
+
+	memset(&ce, 0, sizeof(ce));
+	ck_assert_msg(conf_parse(text, strlen(text), &c, &ce) == 0,
+	    "config line %d: %s", ce.line, ce.msg);
+	return c;
+}
 
 static uint64_t
 rotl(uint64_t x, int k)

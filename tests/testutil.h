@@ -1,13 +1,16 @@
 /* SPDX-License-Identifier: ISC */
 /*
  * testutil: shared helpers for the unit tests: a seeded PRNG, normal
- * variates, the log relative error, and the batch least-squares oracle
- * (LAPACK dgels on the explicitly weighted problem).
+ * variates, the log relative error, the batch least-squares oracle
+ * (LAPACK dgels on the explicitly weighted problem) and a configuration
+ * parsed or the test failed.
  */
 #ifndef COEFD_TESTUTIL_H
 #define COEFD_TESTUTIL_H
 
 #include <stdint.h>
+
+struct conf;
 
 struct rng {
 	uint64_t s[4];
@@ -22,6 +25,10 @@ double	 rng_norm(struct rng *g);		/* N(0,1), polar method */
 /* LRE = -log10(|est - cert| / |cert|), capped at 15 (or -log10|est| when
  * cert = 0), the customary StRD accuracy measure. */
 double	 lre(double est, double cert);
+
+/* test_conf: parse a configuration text; the test fails with the
+ * parser's line and message if it is refused. */
+struct conf *test_conf(const char *text);
 
 /* Relative 2-norm error ||a - b|| / ||b||. */
 double	 relerr(const double *a, const double *b, int n);
