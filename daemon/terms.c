@@ -9,6 +9,7 @@
  */
 #include <assert.h>
 #include <math.h>
+#include <stdint.h>
 #include <stdlib.h>
 #include <string.h>
 
@@ -75,10 +76,17 @@ struct terms_form {
 	int		*kbuf;		/* max(nvars, p) */
 	double		*work;		/* max(p, 2 nfields) */
 	double		*m_val;		/* nnz */
+	uint64_t	 val_stamp;	/* the set m_val was computed for */
+	uint64_t	 stamps;	/* the last stamp handed out */
 };
 
 struct terms {
 	struct terms_form *fm;		/* shared, reference counted */
+	/* Unique among the sets of fm, renewed when the constants are
+	 * fixed: m_val holds this set's values when fm->val_stamp equals
+	 * it (a stamp is never handed out twice, so a freed set's cannot
+	 * match a new one). */
+	uint64_t	 stamp;
 	int		 scaling_set;
 	/* nfields each, in the same allocation as the struct; NULL when
 	 * the set has no room for constants (identity for good). */
@@ -849,6 +857,7 @@ set_new(struct terms_form *fm, int room)
 		return NULL;
 	t->fm = fm;
 	fm->refs++;
+	t->stamp = ++fm->stamps;
 	if (room) {
 		t->centre = (double *)(t + 1);
 		t->scale = t->centre + nf;
@@ -1248,6 +1257,7 @@ terms_set_scaling(struct terms *t, const double *centre, const double *scale)
 		if (centre[f] != 0.0 && !fm->centrable[f])
 			return E_ARG;
 	}
+	fm->val_stamp = 0;	/* the scratch is overwritten (no set has 0) */
 	if (map_values(fm, centre, scale, fm->m_val) != 0)
 		return E_NUMERIC;
 	for (f = 0; f < fm->nfields; f++) {
@@ -1255,6 +1265,8 @@ terms_set_scaling(struct terms *t, const double *centre, const double *scale)
 		t->scale[f] = scale[f];
 	}
 	t->scaling_set = 1;
+	t->stamp = ++fm->stamps;
+	fm->val_stamp = t->stamp;	/* m_val holds them now */
 	return 0;
 }
 
@@ -1509,17 +1521,23 @@ terms_eval_original(const struct terms *t, const double *x,
 	return eval(t, x, xprev, phi, 0);
 }
 
-/* M's entry values for t's constants into the form's scratch. They were
+/* M's entry values for t's constants, in the form's scratch; computed
+ * again only when another set of the form used the scratch since (a
+ * model's tolerance check converts two vectors per record). They were
  * checked finite when the constants were fixed. */
 static const double *
 cur_values(const struct terms *t)
 {
+	struct terms_form *fm = t->fm;
 	int rc;
 
-	rc = map_values(t->fm, t->centre, t->scale, t->fm->m_val);
-	assert(rc == 0);
-	(void)rc;
-	return t->fm->m_val;
+	if (fm->val_stamp != t->stamp) {
+		rc = map_values(fm, t->centre, t->scale, fm->m_val);
+		assert(rc == 0);
+		(void)rc;
+		fm->val_stamp = t->stamp;
+	}
+	return fm->m_val;
 }
 
 /*

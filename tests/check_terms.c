@@ -1272,6 +1272,51 @@ START_TEST(test_terms_clone_shares)
 END_TEST
 
 
+/*
+ * Sets of one compiled form with different constants, used in turn: each
+ * gets its own M (the form keeps the values of the last set that used its
+ * scratch, and computes them again for another). Reference: M of a set
+ * that never shared its form, and the closed form of TERMS.md for a:
+ * u = (a - c) / s, so u^2 = (a^2 - 2 c a + c^2) / s^2.
+ */
+START_TEST(test_terms_map_per_set)
+{
+	static const char *const f[] = { "a", "b", "y" };
+	static const double c1[] = { 1.5, 0, 0 }, s1[] = { 2, 4, 1 };
+	static const double c2[] = { -3, 0, 0 }, s2[] = { 8, 0.5, 1 };
+	struct terms *t = parse_ok("a, b, a^2", f, 3, 2, 1), *u, *r1, *r2;
+	double m1[16], m2[16], mu[16], mt[16];
+	int k;
+
+	ck_assert_ptr_nonnull(u = terms_clone(t, 1));
+	ck_assert_int_eq(terms_set_scaling(t, c1, s1), 0);
+	ck_assert_int_eq(terms_set_scaling(u, c2, s2), 0);
+	r1 = parse_ok("a, b, a^2", f, 3, 2, 1);
+	r2 = parse_ok("a, b, a^2", f, 3, 2, 1);
+	ck_assert_int_eq(terms_set_scaling(r1, c1, s1), 0);
+	ck_assert_int_eq(terms_set_scaling(r2, c2, s2), 0);
+	terms_map(r1, m1);
+	terms_map(r2, m2);
+	for (k = 0; k < 3; k++) {
+		terms_map(t, mt);
+		terms_map(t, mt);
+		ck_assert_mem_eq(mt, m1, sizeof(m1));
+		terms_map(u, mu);
+		ck_assert_mem_eq(mu, m2, sizeof(m2));
+	}
+	/* Row of a^2 for t: (1/s^2) a^2 - (2c/s^2) a + (c^2/s^2) 1. */
+	ck_assert_double_eq_tol(mt[3 * 4 + 3], 1 / (s1[0] * s1[0]), 1e-15);
+	ck_assert_double_eq_tol(mt[3 * 4 + 1], -2 * c1[0] / (s1[0] * s1[0]),
+	    1e-15);
+	ck_assert_double_eq_tol(mt[3 * 4 + 0], c1[0] * c1[0] / (s1[0] * s1[0]),
+	    1e-15);
+	terms_free(t);
+	terms_free(u);
+	terms_free(r1);
+	terms_free(r2);
+}
+END_TEST
+
 Suite *
 terms_suite(void)
 {
@@ -1280,6 +1325,7 @@ terms_suite(void)
 
 	tc = tcase_create("grammar");
 	tcase_add_test(tc, test_terms_clone_shares);
+	tcase_add_test(tc, test_terms_map_per_set);
 	tcase_add_test(tc, test_terms_parse_basic);
 	tcase_add_test(tc, test_terms_canonical);
 	tcase_add_test(tc, test_terms_errors);
