@@ -27,9 +27,6 @@
  */
 #include <assert.h>
 #include <math.h>
-#ifdef __SSE2__
-#include <emmintrin.h>	/* baseline on x86-64 */
-#endif
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -52,26 +49,14 @@ finite_bounded(double v)
 	return isfinite(v) && fabs(v) <= RLS_VALUE_MAX;
 }
 
-/*
- * 1 when every v[j] (n values) is finite_bounded: |v| <= max is false for
- * a NaN and for an infinity, so one comparison per value does. Two at a
- * time with SSE2, whose ordered comparison is false for NaN as well.
- */
+/* 1 when every v[j] (n values) is finite_bounded: |v| <= max is false for
+ * a NaN and for an infinity, so one comparison per value does. */
 static int
 all_bounded(const double *v, int n)
 {
-	int j = 0, ok = 1;
-#ifdef __SSE2__
-	const __m128d sign = _mm_set1_pd(-0.0);
-	const __m128d max = _mm_set1_pd(RLS_VALUE_MAX);
-	__m128d acc = _mm_cmpeq_pd(max, max);	/* all ones */
+	int j, ok = 1;
 
-	for (; j + 2 <= n; j += 2)
-		acc = _mm_and_pd(acc, _mm_cmple_pd(_mm_andnot_pd(sign,
-		    _mm_loadu_pd(v + j)), max));
-	ok = _mm_movemask_pd(acc) == 3;
-#endif
-	for (; j < n; j++)
+	for (j = 0; j < n; j++)
 		ok &= fabs(v[j]) <= RLS_VALUE_MAX;
 	return ok;
 }
@@ -356,11 +341,9 @@ drift_stat(const struct model *m, double sref)
 static int
 coef_out(const struct model *m)
 {
-	double theta[RLS_MAX_P];
-	int j;
-
-	double th_o[RLS_MAX_P], pin_o[RLS_MAX_P];
+	double theta[RLS_MAX_P], th_o[RLS_MAX_P], pin_o[RLS_MAX_P];
 	const double *th = theta, *pin = m->theta_pin;
+	int j;
 
 	if (!m->pinned || (m->o.tol_abs == NULL && m->o.tol_pct == NULL))
 		return 0;
@@ -401,15 +384,18 @@ model_step(struct model *m, const double *phi, double y, double w,
 	struct rls_apriori a;
 	struct alarm_input in;
 	double lam, sref, f = NAN;
-	int rc, p = m->o.p;
+	int rc;
 
 	if (out == NULL)
 		out = &tmp;
-	if ((rc = check_record(m, phi, p, y, w, t)) != 0)
+	/* rls_apriori checks phi (E_NUMERIC) and changes nothing, so it runs
+	 * first and check_record takes only the rest: each value is checked
+	 * once, in the order documented above. */
+	if ((rc = rls_apriori(m->rls, phi, &a)) != 0 ||
+	    (rc = check_record(m, NULL, 0, y, w, t)) != 0)
 		return rc;
 
 	lam = step_lambda(m, t);
-	rls_apriori(m->rls, phi, &a);
 	sref = sigma_ref(m);
 	out->lambda = lam;
 	out->yhat = a.yhat;
