@@ -276,7 +276,6 @@ forward(const struct rls *r, const double *x, double *v)
 		forward_vec(r, x, v);
 }
 
-
 static int
 check_opts(const struct rls_opts *o)
 {
@@ -412,6 +411,8 @@ rls_copy(struct rls *dst, const struct rls *src)
 	dst->lampow = src->lampow;
 	dst->delta = src->delta;
 	dst->regk = src->regk;
+	dst->regpos = src->regpos;
+	dst->regpos_at = src->regpos_at;
 	dst->nupd = src->nupd;
 	dst->cyc = src->cyc;
 	memcpy(dst->T, src->T, sizeof(double) * n * n);
@@ -432,7 +433,6 @@ rls_rank(const struct rls *r)
 		k += col_determined(r, j);
 	return k;
 }
-
 
 /*
  * rls_apriori: the one-step-ahead quantities for regressor phi without
@@ -529,13 +529,12 @@ update(struct rls *r, const double *phi, double y, double w, double lambda,
 	r->lampow *= lambda;
 	inv = 1.0 / s;
 
-	/* The regularisation row of this record, if it is a K-th one. */
-	/* Where nupd is in its block of K, kept up to date without a 64-bit
-	 * division per record (one costs as much as the rest of a p = 4
-	 * update): recomputed only after a restore or copy moved nupd. */
-	if (r->regpos_at != r->nupd || r->regk == 1)
-		r->regpos = r->regk == 1 ? 0 :
-		    (int)(r->nupd % (uint64_t)r->regk);
+	/* The regularisation row of this record, if it is a K-th one.
+	 * regpos = nupd mod K is kept up to date without a 64-bit division
+	 * per record, recomputed only when nupd moved otherwise (a restore,
+	 * a reset). */
+	if (r->regpos_at != r->nupd)
+		r->regpos = (int)(r->nupd % (uint64_t)r->regk);
 	have_reg = r->delta > 0 && lambda < 1 && r->regpos == r->regk - 1;
 	r->regpos = r->regpos + 1 == r->regk ? 0 : r->regpos + 1;
 	r->regpos_at = r->nupd + 1;
